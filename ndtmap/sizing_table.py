@@ -146,6 +146,7 @@ def size_indications(
     min_snr_db: float = 6.0,
     repeat_tolerance_mm: float = 2.0,
     repeat_tolerance_fraction: float = 0.03,
+    other_indications: Any = (),
     rules: Rules | str | os.PathLike[str] | None = None,
 ) -> list[dict[str, Any]]:
     """Detect, size, flag (and optionally screen) the indications of a gated map.
@@ -189,6 +190,9 @@ def size_indications(
         ``low_snr`` below this peak-to-noise ratio.
     repeat_tolerance_mm, repeat_tolerance_fraction : float
         Depth tolerance of ``repeat_echo``.
+    other_indications : sequence of Indication, optional
+        Indications of other gates at the same positions (e.g. a shallower
+        gate), checked as possible primaries of repeat echoes.
     rules : Rules or path, optional
         Screening rules; each record then has ``screening`` and
         ``exceeded_rules``.
@@ -291,6 +295,7 @@ def size_indications(
         backwall_depth_mm=zbw_depth,
         tolerance_mm=repeat_tolerance_mm,
         tolerance_fraction=repeat_tolerance_fraction,
+        others=list(other_indications),
     )
     records = []
     for ind in inds:

@@ -23,7 +23,6 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from . import CAUTION
 from ._validate import positive_float
 from .errors import FileFormatError, ParameterTypeError, ProcedureError
 
@@ -165,7 +164,7 @@ class ScreeningResult:
     densities_per_m2: dict[str, float] = field(default_factory=dict)
     scanned_area_mm2: float = 0.0
     rules_name: str = ""
-    caution: str = CAUTION
+    caution: str = field(default_factory=lambda: _caution())
 
     def for_id(self, id: int) -> IndicationScreening:
         """The screening of the indication with this id."""
@@ -185,6 +184,12 @@ class ScreeningResult:
             "indications": [s.as_dict() for s in self.indications],
             "caution": self.caution,
         }
+
+
+def _caution() -> str:
+    from . import CAUTION  # the package's one caution text (imported late: ndtmap/__init__ may import this module)
+
+    return CAUTION
 
 
 # --------------------------------------------------------------------------- parsing
@@ -550,5 +555,5 @@ def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float)
         densities_per_m2=densities,
         scanned_area_mm2=area,
         rules_name=rules.name,
-        caution=CAUTION,
+        caution=_caution(),
     )

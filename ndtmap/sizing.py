@@ -218,7 +218,7 @@ def _check_indication(ind: Any, shape: tuple[int, ...]) -> tuple[int, int]:
             f"`indication` must be an Indication (from ndtmap.indications), got {type(ind).__name__}"
         )
     i, j = ind.peak_position
-    if not (0 <= i < shape[0] and 0 <= j < shape[1]):
+    if ind.region.shape != tuple(shape) or not (0 <= i < shape[0] and 0 <= j < shape[1]):
         raise SizingError(
             f"`indication` {ind.id} has its peak at array position {ind.peak_position}, outside the map of "
             f"shape {shape}; size it on the map it was detected on"
@@ -406,6 +406,9 @@ def _measure(
     with np.errstate(invalid="ignore"):
         g = v - lv
     notes: list[str] = []
+    if s.size < 2:
+        return LengthResult(None, None, None, None, level_fsh, method, prof["direction"], edge, False, False,
+                            (f"the map has a single position along {prof['direction']}: no {method} length",))
     if not (g[k0] >= 0):
         return LengthResult(
             length_mm=None,

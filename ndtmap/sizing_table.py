@@ -297,6 +297,9 @@ def size_indications(
         tolerance_fraction=repeat_tolerance_fraction,
         others=list(other_indications),
     )
+    noise_note = None
+    if noise is None and inds:
+        noise_note = "noise level unknown (too few valid positions outside the indications): low_snr not evaluated"
     records = []
     for ind in inds:
         records.append(
@@ -309,6 +312,9 @@ def size_indications(
                 gain_red=backwall_gain_reduction_db, dgs_model=dgs_model, dgs_problem=dgs_problem,
             )
         )
+    if noise_note:
+        for rec in records:
+            rec["notes"].append(noise_note)
     for ind in loss_inds:
         records.append(_loss_record(loss_map, ind, level=float(loss_threshold_db), edge=edge))
     if rules_obj is not None:

@@ -268,3 +268,14 @@ def test_drop_factor_and_beam_width_sources():
     assert w == pytest.approx(12.0) and "outside the beam profile" in notes[0]
     w, notes = beam_width_at(50.0, drop_db=6, attrs={})
     assert w is None and "lacks" in notes[0]
+
+
+def test_single_position_axis_gives_no_length():
+    # common practice, no source: one scan line has no extent along the scan axis to measure
+    values = np.zeros((1, 30))
+    values[0, 10:15] = 60.0
+    m = make_map(values, [0.0], np.arange(30.0))
+    ind = _only(m)
+    assert drop_length(m, ind, axis="scan").length_mm is None
+    assert drop_length(m, ind, axis="index").length_mm == pytest.approx(5.0)
+    assert drop_area(m, ind).area_mm2 is None

@@ -213,8 +213,10 @@ def size_indications(
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(20.0), "index": np.arange(20.0)},
     ...                  attrs={"probe_diameter_mm": 10, "probe_frequency_mhz": 5, "velocity_m_s": 5920})
     >>> r = size_indications(m, threshold_fsh=20)[0]
-    >>> r["id"], r["peak_fsh"], r["length_scan_mm"], r["length_index_mm"], r["area_mm2"]
-    (1, 80.0, 10.0, 6.0, 60.0)
+    >>> r["id"], r["peak_fsh"], round(r["length_scan_mm"], 2), round(r["length_index_mm"], 2), r["area_mm2"]
+    (1, 80.0, 10.03, 6.03, 60.0)
+    >>> r["flags"]  # no depth map: the beam checks are not made (see r["notes"])
+    []
     """
     amp = mg.as_map("amplitude_map", amplitude_map)
     attrs = dict(amplitude_map.attrs)

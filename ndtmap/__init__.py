@@ -32,6 +32,7 @@ from .grid import (
     validate_grid,
 )
 from .provenance import read_provenance, with_step
+from .sizing_table import size_indications
 
 CAUTION = (
     "Results must be reviewed by qualified personnel (e.g. certified to ISO 9712 or the "
@@ -60,4 +61,5 @@ __all__ = [
     "ascan_in_fsh",
     "read_provenance",
     "with_step",
+    "size_indications",
 ]

@@ -10,8 +10,9 @@
 Sections carry the calibrated axes as coordinates along ``time``: ``depth``
 (``s cos(theta)``, unfolded) and ``sound_path`` (mm). Values are the
 detection signal in %FSH ('rectified' by default; 'envelope' or 'none' for
-the signal as recorded). Missing A-scans stay NaN, and interpolation next to
-a missing A-scan gives NaN.
+the signal as recorded). Missing A-scans stay NaN, and an interpolated value
+to which a missing A-scan contributes (a neighbour with a positive weight)
+is NaN.
 """
 
 from __future__ import annotations
@@ -53,6 +54,52 @@ def _check_position(grid: xr.Dataset, axis: str, value: Any, name: str) -> float
     return float(np.clip(v, c[0], c[-1]))
 
 
+def _brackets(coord: np.ndarray, q: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Lower and upper neighbour and the weight of the upper one for each query position."""
+    n = coord.size
+    if n == 1:
+        zero = np.zeros(q.shape, dtype=np.int64)
+        return zero, zero, np.zeros(q.shape)
+    k = np.clip(np.searchsorted(coord, q, side="right") - 1, 0, n - 2)
+    frac = np.clip((q - coord[k]) / (coord[k + 1] - coord[k]), 0.0, 1.0)
+    return k, k + 1, frac
+
+
+def _interpolate(sig: xr.DataArray, queries: dict[str, np.ndarray], method: str, dim: str | None) -> xr.DataArray:
+    """Interpolate `sig` at positions along ``scan``/``index`` (linear: bilinear weights; nearest).
+
+    Only neighbours with a positive weight take part, so a missing neighbour
+    makes the result missing only where it actually contributes.
+    """
+    corners: list[tuple[dict[str, Any], Any]] = [({}, 1.0)]
+    for axis, q in queries.items():
+        lo, hi, frac = _brackets(np.asarray(sig[axis].values, dtype=np.float64), np.asarray(q, dtype=np.float64))
+        if method == "nearest":
+            pick = np.where(frac > 0.5, hi, lo)
+            options = [(pick, np.ones(np.shape(q)))]
+        else:
+            options = [(lo, 1.0 - frac), (hi, frac)]
+        new = []
+        for idx, w in corners:
+            for k, wk in options:
+                new.append(({**idx, axis: k}, w * wk))
+        corners = new
+
+    def indexer(k: np.ndarray) -> Any:
+        return int(k) if dim is None else xr.DataArray(k, dims=dim)
+
+    out = None
+    for idx, w in corners:
+        w_da = w if dim is None else xr.DataArray(np.asarray(w), dims=dim)
+        if dim is None and float(w) <= 0.0:
+            continue
+        part = sig.isel({a: indexer(k) for a, k in idx.items()})
+        part = part * w_da if dim is None else xr.where(w_da > 0, part * w_da, 0.0)
+        out = part if out is None else out + part
+    assert out is not None
+    return out.drop_vars([a for a in queries if a in out.coords])
+
+
 def _line(grid: xr.Dataset, axis: str, position_mm: Any, name: str, method: str, detect: str,
           step: str) -> xr.DataArray:
     grid = check_grid(grid)
@@ -65,7 +112,7 @@ def _line(grid: xr.Dataset, axis: str, position_mm: Any, name: str, method: str,
         out = sig.isel({axis: k})
         used = float(c[k])
     else:
-        out = sig.interp({axis: pos}, method="linear")
+        out = _interpolate(sig, {axis: np.asarray(pos)}, "linear", None).assign_coords({axis: pos})
         used = pos
     other = "index" if axis == "scan" else "scan"
     out = out.transpose(other, "time").rename("amplitude_fsh")
@@ -141,7 +188,10 @@ def polyline_section(
     The polyline is sampled at equal distances along its length (the whole
     length divided into the fewest equal parts no longer than `step_mm`; the
     vertices are on the line but not necessarily samples), and the A-scans
-    are interpolated there on the ``(scan, index)`` grid.
+    are interpolated there on the ``(scan, index)`` grid: bilinearly from
+    the four neighbouring A-scans (only those with a positive weight take
+    part, so a sample exactly on a recorded line ignores the next line), or
+    from the nearest one.
 
     Parameters
     ----------
@@ -199,16 +249,13 @@ def polyline_section(
     sig = _signal(grid, detect)
     coords = {}
     for axis, values in (("scan", s_pos), ("index", i_pos)):
-        coords[axis] = xr.DataArray(np.clip(values, grid[axis].values[0], grid[axis].values[-1]), dims="distance")
-    single = {a for a in ("scan", "index") if grid.sizes[a] == 1}
-    if single:
-        sig = sig.isel({a: 0 for a in single})
-    interp_coords = {a: v for a, v in coords.items() if a not in single}
-    out = sig.interp(interp_coords, method=method) if interp_coords else sig
+        coords[axis] = np.clip(values, grid[axis].values[0], grid[axis].values[-1])
+    out = _interpolate(sig, coords, method, "distance")
     out = out.assign_coords(
         distance=xr.DataArray(dist, dims="distance", attrs={"units": "mm", "long_name": "distance along the line"}),
-        scan=coords["scan"].assign_attrs(units="mm", long_name="scan axis position"),
-        index=coords["index"].assign_attrs(units="mm", long_name="index axis position"),
+        scan=xr.DataArray(coords["scan"], dims="distance", attrs={"units": "mm", "long_name": "scan axis position"}),
+        index=xr.DataArray(coords["index"], dims="distance",
+                           attrs={"units": "mm", "long_name": "index axis position"}),
     )
     out = out.transpose("distance", "time").rename("amplitude_fsh")
     out.attrs = result_attrs(grid, units="%FSH", long_name=f"section along a polyline ({detect})", detect=detect,

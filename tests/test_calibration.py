@@ -5,8 +5,8 @@ import json
 import numpy as np
 import pytest
 import xarray as xr
-
 from burst_grids import ALUMINIUM_L, STEEL_L, plate_grid, to_backend
+
 from ndtmap.calibration import (
     calibrate,
     thickness_from_echo_spacing,

@@ -6,10 +6,10 @@ import math
 import numpy as np
 import pytest
 import xarray as xr
+from burst_grids import DT, FREQ, STEEL_L, WATER, grid_from, is_dask, plate_grid, to_backend, with_missing
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from burst_grids import DT, FREQ, STEEL_L, WATER, grid_from, is_dask, plate_grid, to_backend, with_missing
 from ndtmap.errors import GateError, ParameterTypeError
 from ndtmap.gates import Gate, _gate_kernel, evaluate_gate, evaluate_gates, gate_window_us
 from ndtmap.grid import make_grid

@@ -4,8 +4,8 @@ import math
 
 import numpy as np
 import pytest
-
 from burst_grids import STEEL_L, STEEL_S, plate_grid
+
 from ndtmap.errors import ParameterError
 from ndtmap.geometry import (
     depth_axis,

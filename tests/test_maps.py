@@ -5,8 +5,8 @@ import math
 import numpy as np
 import pytest
 import xarray as xr
-
 from burst_grids import STEEL_L, WATER, grid_from, is_dask, plate_grid, to_backend, with_missing
+
 from ndtmap.errors import GateError, ParameterError
 from ndtmap.gates import Gate
 from ndtmap.maps import (

@@ -5,9 +5,9 @@ import math
 import numpy as np
 import pytest
 import xarray as xr
+from burst_grids import DT, FREQ, STEEL_L, burst, grid_from, is_dask, plate_grid, time_axis, to_backend, with_missing
 from scipy import signal as sps
 
-from burst_grids import DT, FREQ, STEEL_L, burst, grid_from, is_dask, plate_grid, time_axis, to_backend, with_missing
 from ndtmap.errors import CalibrationError, ParameterError
 from ndtmap.grid import make_grid
 from ndtmap.provenance import read_provenance

@@ -217,3 +217,15 @@ def test_maps_do_not_change_their_input(backend):
               side_view(g), end_view(g)):
         m.load()
     xr.testing.assert_identical(g, before)
+
+
+@pytest.mark.parametrize("kind", ["amplitude", "depth", "thickness", "backwall-loss"])
+def test_missing_ascans_are_missing_in_every_map(kind, backend):
+    holes = [(0, 0), (3, 2), (9, 3)]
+    g = to_backend(with_missing(corroded_grid(), holes), backend)
+    m = map_by_kind(g, kind, Gate("bw", 7.0, 14.0)).values
+    mask = np.zeros(m.shape, dtype=bool)
+    for i, j in holes:
+        mask[i, j] = True
+    assert np.isnan(m[mask]).all()
+    assert np.isfinite(m[~mask]).all()

@@ -436,11 +436,14 @@ class _Evaluator:
                 lo_f, hi_f = self.bounds(gate.follows)
                 lo, hi = lo_f + a, hi_f + b
                 tol = _EPS * self.pc.dt_us
-                if hi < self.t_first - tol or lo > self.t_last + tol or (lo + b - a) > self.t_last + tol:
+                earliest_end, latest_start = lo_f + b, hi_f + a  # every window is cut by the record if either
+                if (hi < self.t_first - tol or lo > self.t_last + tol or earliest_end > self.t_last + tol
+                        or latest_start < self.t_first - tol):
                     raise GateError(
                         f"gate {name!r} follows {gate.follows!r}: its window {self.describe(gate)} after that event "
-                        f"({a:.6g} to {b:.6g} us; the event lies between {lo_f:.6g} and {hi_f:.6g} us) lies entirely "
-                        f"outside the recorded time range {self.t_first:.6g} to {self.t_last:.6g} us; move the gate"
+                        f"({a:.6g} to {b:.6g} us; the event lies between {lo_f:.6g} and {hi_f:.6g} us) lies outside "
+                        f"(entirely or partly, at every position) the recorded time range {self.t_first:.6g} to "
+                        f"{self.t_last:.6g} us; move the gate"
                     )
                 self._bounds[name] = (max(lo, self.t_first), min(hi, self.t_last))
         return self._bounds[name]

@@ -256,8 +256,12 @@ def test_gate_outside_the_record_raises_naming_gate_window_and_record():
         evaluate_gate(g, Gate("edge", 15.0, 19.0))
     with pytest.raises(GateError, match="less than one sample"):
         evaluate_gate(g, Gate("thin", 1.0, 1.01, unit="us"))
-    with pytest.raises(GateError, match=r"gate 'far'.*follows 'bw'.*entirely outside"):
+    with pytest.raises(GateError, match=r"gate 'far'.*follows 'bw'.*lies outside"):
         evaluate_gate(g, Gate("far", 30.0, 40.0, follows="bw"), others=[Gate("bw", 10.0, 14.0)])
+    # a window that starts before the record at every position
+    with pytest.raises(GateError, match=r"gate 'early'.*follows 'ifc'.*lies outside"):
+        evaluate_gate(g, Gate("early", -1.0, 0.5, unit="us", follows="ifc"),
+                      others=[Gate("ifc", 0.1, 0.6, unit="us", threshold_fsh=0.0)])
 
 
 def test_following_gate_partly_outside_at_some_positions_is_missing_there(backend):

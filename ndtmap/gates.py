@@ -302,8 +302,33 @@ def _gate_kernel(
     )
 
 
+_BLOCK_ELEMENTS = 2_000_000  # samples per call of the kernel: bounds the size of its temporaries
+
+
+def _gate_kernel_blocked(samples: np.ndarray, i_start: np.ndarray | None = None, i_end: np.ndarray | None = None,
+                         **kwargs: Any) -> tuple[np.ndarray, ...]:
+    """Run :func:`_gate_kernel` over slabs of A-scans so that its temporaries stay small."""
+    x = np.asarray(samples)
+    lead = x.shape[:-1]
+    n_traces = int(np.prod(lead)) if lead else 1
+    per = max(1, _BLOCK_ELEMENTS // max(1, x.shape[-1]))
+    if n_traces <= per:
+        return _gate_kernel(x, i_start=i_start, i_end=i_end, **kwargs)
+    flat = x.reshape(n_traces, x.shape[-1])
+    s = None if i_start is None else np.broadcast_to(np.asarray(i_start, dtype=np.float64), lead).reshape(-1)
+    e = None if i_end is None else np.broadcast_to(np.asarray(i_end, dtype=np.float64), lead).reshape(-1)
+    outs = [np.empty(n_traces) for _ in range(4)]
+    for k in range(0, n_traces, per):
+        part = slice(k, k + per)
+        res = _gate_kernel(flat[part], i_start=None if s is None else s[part], i_end=None if e is None else e[part],
+                           **kwargs)
+        for o, r in zip(outs, res, strict=True):
+            o[part] = r
+    return tuple(o.reshape(lead) for o in outs)
+
+
 def _gate_kernel_windows(samples: np.ndarray, i_start: np.ndarray, i_end: np.ndarray, **kwargs: Any) -> Any:
-    return _gate_kernel(samples, i_start=i_start, i_end=i_end, **kwargs)
+    return _gate_kernel_blocked(samples, i_start=i_start, i_end=i_end, **kwargs)
 
 
 # --------------------------------------------------------------------------- gate tables and evaluation
@@ -465,7 +490,7 @@ class _Evaluator:
             sig = whole_time(self.signal.isel(time=slice(i0, i1 + 1)))
             kwargs["t0_us"] = self.t_first + i0 * dt
             outs = xr.apply_ufunc(
-                _gate_kernel, sig, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
+                _gate_kernel_blocked, sig, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
                 kwargs=kwargs, dask="parallelized", output_dtypes=[np.float64] * 4,
             )
             window = (a, b)

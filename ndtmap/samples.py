@@ -75,7 +75,8 @@ def forging_block() -> xr.Dataset:
         FlatBottomHole(30.0, 25.0, 100.0, 2.0, label="R1"),
         FlatBottomHole(70.0, 55.0, 120.0, 3.0, label="R2"),
         FlatBottomHole(95.0, 20.0, 140.0, 4.0, label="R3"),
-        PlanarReflector.rectangle((40.0, 56.0), (50.0, 62.0), 55.0, label="P1 planar reflector"),
+        # a partly bonded planar reflector (oxide-filled): reflects 40 % of the wave
+        PlanarReflector.rectangle((40.0, 56.0), (50.0, 62.0), 55.0, reflectivity=-0.4, label="P1 planar reflector"),
     ]
     plan = ScanPlan.raster((0.0, 120.0), (0.0, 80.0), 2.5, (0.0, 57.0), sampling_mhz=20.0)
     return simulate_scan(
@@ -84,8 +85,8 @@ def forging_block() -> xr.Dataset:
         Part(160.0),
         reflectors,
         plan,
-        noise=Noise(grain_fsh=1.5, electronic_fsh=0.3),
-        backwall_fsh=80.0,
+        noise=Noise(grain_fsh=0.35, electronic_fsh=0.15),
+        backwall_fsh=90.0,
         dtype="int16",
         seed=317,
         attrs={

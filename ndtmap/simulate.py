@@ -1295,7 +1295,6 @@ def simulate_scan(
 
 def _grain_noise(rng, model: _Model, plan: ScanPlan, part: Part, scan, index, time, level: float) -> np.ndarray:
     n_scan, n_index, n_time = scan.size, index.size, time.size
-    white = rng.standard_normal((n_scan, n_index, n_time))
     mid = 0.5 * part.thickness_mm
     width = float(
         beam.beam_width_mm(mid, model.probe.diameter_mm, model.probe.frequency_mhz, model.material.velocity_m_s)
@@ -1303,7 +1302,12 @@ def _grain_noise(rng, model: _Model, plan: ScanPlan, part: Part, scan, index, ti
     sigma_mm = width / 2.3548
     ds_scan = float(np.median(np.diff(scan))) if n_scan > 1 else 1.0
     ds_index = float(np.median(np.diff(index))) if n_index > 1 else 1.0
-    white = ndimage.gaussian_filter(white, (sigma_mm / ds_scan, sigma_mm / ds_index, 0.0), mode="nearest")
+    sig = (sigma_mm / ds_scan, sigma_mm / ds_index)
+    # draw the noise on a grid padded by 4 sigma and crop, so the edges are as noisy as the middle
+    pad = [int(math.ceil(4 * s)) for s in sig]
+    white = rng.standard_normal((n_scan + 2 * pad[0], n_index + 2 * pad[1], n_time))
+    white = ndimage.gaussian_filter(white, (sig[0], sig[1], 0.0), mode="wrap")
+    white = white[pad[0] : pad[0] + n_scan, pad[1] : pad[1] + n_index]
     dt = 1.0 / plan.sampling_mhz
     t = np.arange(-model.pad, model.pad + dt / 2, dt)
     pulse = tone_burst(t, model.probe.frequency_mhz, model.probe.bandwidth)

@@ -201,7 +201,7 @@ def _check_coord(ds: xr.Dataset, name: str, problems: list[str]) -> None:
             kind = "repeats a value" if steps[where] == 0 else "decreases"
             problems.append(
                 f"coordinate `{name}` must be strictly increasing but {kind} at position {where + 1} "
-                f"({values[where]!r} then {values[where + 1]!r}); sort with ds.sortby({name!r}) "
+                f"({float(values[where])!r} then {float(values[where + 1])!r}); sort with ds.sortby({name!r}) "
                 "or remove duplicate positions"
             )
         elif name == "time":

@@ -285,16 +285,18 @@ def _check_ascan(ds: xr.Dataset, problems: list[str], *, check_values: bool) -> 
     if 0 in a.shape:
         problems.append(f"`ascan` is empty (shape {dict(zip(a.dims, a.shape, strict=True))})")
         return
-    if check_values and np.issubdtype(a.dtype, np.floating):
-        missing = missing_ascans(ds)
-        if bool(missing.all()):
-            problems.append(
-                "every A-scan is missing (NaN); the file holds no usable data"
-            )
+    mask_ok = True
     if "missing" in ds.data_vars:
         m = ds["missing"]
         if m.dims != ("scan", "index") or m.dtype != bool:
+            mask_ok = False
             problems.append(f"data variable `missing` must be boolean on ('scan', 'index'), has {m.dims} {m.dtype}")
+    if check_values and mask_ok and (np.issubdtype(a.dtype, np.floating) or "missing" in ds.data_vars):
+        missing = missing_ascans(ds)
+        if bool(missing.all()):
+            problems.append(
+                "every A-scan is missing (NaN or marked in `missing`); the file holds no usable data"
+            )
 
 
 def grid_problems(ds: Any, *, check_values: bool = True) -> list[str]:

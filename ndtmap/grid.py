@@ -94,6 +94,8 @@ OPTIONAL_ATTRS: dict[str, tuple[str, str]] = {
     "attenuation_db_per_mm": ("one-way material attenuation", "dB/mm"),
     "digitiser_full_scale_fsh": ("digitiser full scale (clipping level)", "%FSH"),
     "operator_notes": ("free text from the acquisition", "text"),
+    "water_path_mm": ("water path (immersion or water column) from probe to part surface", "mm"),
+    "water_velocity_m_s": ("sound velocity in the water path", "m/s"),
 }
 
 WAVE_MODES = ("longitudinal", "shear")
@@ -114,6 +116,8 @@ _OPTIONAL_LIMITS: dict[str, tuple[float, float, bool, bool]] = {
     "gain_db": (-200.0, 200.0, True, True),
     "attenuation_db_per_mm": (0.0, 100.0, True, True),
     "digitiser_full_scale_fsh": (0.0, 1e6, False, True),
+    "water_path_mm": (0.0, 1e4, True, True),
+    "water_velocity_m_s": (100.0, 20000.0, False, True),
 }
 
 _UNIFORM_RTOL = 1e-3

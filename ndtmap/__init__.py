@@ -31,6 +31,7 @@ from .grid import (
     missing_ascans,
     validate_grid,
 )
+from .io import export_raw, import_raw, open_grid, save_grid
 from .provenance import read_provenance, with_step
 
 CAUTION = (
@@ -60,4 +61,8 @@ __all__ = [
     "ascan_in_fsh",
     "read_provenance",
     "with_step",
+    "open_grid",
+    "save_grid",
+    "import_raw",
+    "export_raw",
 ]

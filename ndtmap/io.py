@@ -351,6 +351,11 @@ def _open_container(path: Path, engine: str, *, chunks: Mapping[str, int] | None
         if not is_lazy:
             try:
                 ds = peek.load()
+            except MemoryError:
+                raise FileFormatError(
+                    f"not enough memory to load {path} (the A-scans alone take {nbytes} bytes); "
+                    "open it with lazy=True"
+                ) from None
             except Exception as exc:
                 raise FileFormatError(
                     f"could not read the data of {path} ({_reason(exc)}); the file may be truncated or damaged"
@@ -996,6 +1001,11 @@ def import_raw(
             raise FileFormatError(f"cannot map the data file {data_path} ({_reason(exc)})") from None
         try:
             data = np.ascontiguousarray(mapped.transpose(perm), dtype=out_dtype)
+        except MemoryError:
+            raise FileFormatError(
+                f"not enough memory to load {data_path} ({n_samples * out_dtype.itemsize} bytes as {out_dtype}); "
+                "open it with lazy=True"
+            ) from None
         finally:
             del mapped
     coords = {}

@@ -435,3 +435,13 @@ def test_all_missing_integer_grid_is_reported():
     assert only_problem(g) == "every A-scan is missing (NaN or marked in `missing`); the file holds no usable data"
     g["missing"][0, 0] = False
     assert grid_problems(g) == []
+
+
+def test_immersion_attributes_are_checked():
+    g = plate_grid()
+    g.attrs.update(water_path_mm=25.0, water_velocity_m_s=1483.0)  # water at 20 degC (Kaye & Laby, from memory)
+    assert grid_problems(g) == []
+    g.attrs["water_velocity_m_s"] = 1.483  # given in mm/us by mistake
+    assert "global attribute `water_velocity_m_s` is 1.483 m/s, outside the plausible range (100, 20000] m/s" in (
+        only_problem(g)
+    )

@@ -26,7 +26,7 @@ import xarray as xr
 
 import ndtmap.io as nio
 from ndtmap.errors import FileFormatError, GridError, ParameterError
-from ndtmap.grid import DIMS, grid_problems, make_grid, missing_ascans
+from ndtmap.grid import DIMS, ascan_in_fsh, grid_problems, make_grid, missing_ascans
 from ndtmap.io import RAW_SIDECAR_FORMAT, export_raw, import_raw, open_grid, save_grid
 from ndtmap.provenance import read_provenance, with_step
 
@@ -591,16 +591,48 @@ def python_blocks(markdown: str) -> list[str]:
 def test_examples_in_the_format_document_run(tmp_path, monkeypatch):
     """The code in docs/grid-format.md writes valid grids without ndtmap; open_grid must read them."""
     blocks = python_blocks(DOCS.read_text(encoding="utf-8"))
-    writers = [b for b in blocks if "import ndtmap" not in b and "from ndtmap" not in b]
-    assert len(writers) >= 3  # xarray, h5py and the raw dump examples
+    assert len(blocks) >= 4  # xarray, h5py, raw dump, reading
+    assert not any(re.search(r"^\s*(import|from) ndtmap", code, flags=re.M) for code in blocks)
     monkeypatch.chdir(tmp_path)
-    for code in writers:
+    for code in blocks:  # each block on its own, in document order, as a reader would paste them
         exec(compile(code, str(DOCS), "exec"), {"__name__": "grid_format_example"})  # our own document
-    made = sorted(p for p in tmp_path.iterdir() if p.suffix in (".nc", ".json"))
-    assert len(made) >= 3
+    made = sorted(p for p in tmp_path.iterdir() if p.suffix in (".nc", ".zarr", ".json"))
+    assert [p.suffix for p in made] == [".nc", ".zarr", ".nc", ".json"]
     for path in made:
         g = open_grid(path)
         assert grid_problems(g) == [], path
+        assert g.attrs["part_id"] == path.stem
+    # the values the examples put in: back-wall echo at 2 d / v, 80 %FSH peaks, the lost records
+    b = open_grid(tmp_path / "KFP-4471-B.nc")
+    assert int(missing_ascans(b).sum()) == 1 and bool(missing_ascans(b)[12, 7])
+    t_peak = float(b["time"][int(np.argmax(np.abs(b["ascan"].values[0, 0])))])
+    assert abs(t_peak - 2 * 25.0 / (STEEL_L_M_S * 1e-3)) < 0.06  # within a quarter period at 5 MHz
+    c = open_grid(tmp_path / "KFP-4471-C.nc")
+    assert float(ascan_in_fsh(c).max()) == pytest.approx(80.0, abs=0.01)
+    assert np.argwhere(missing_ascans(c).values).tolist() == [[5, 2]]
+    d = open_grid(tmp_path / "KFP-4471-D.json")
+    assert float(ascan_in_fsh(d).max()) == pytest.approx(50.0, abs=0.01)
+    assert d["index"].values[6] == 6.5 and float(d["time"][250]) == pytest.approx(5.0)
+
+
+def doc_table_rows(markdown: str) -> dict[str, list[str]]:
+    rows = {}
+    for line in markdown.splitlines():
+        m = re.match(r"^\| `(\w+)` \|(.*)\|$", line)
+        if m:
+            rows[m.group(1)] = [c.strip() for c in m.group(2).split("|")]
+    return rows
+
+
+def test_format_document_lists_every_attribute_with_the_validators_ranges():
+    from ndtmap.grid import _LIMITS, _OPTIONAL_LIMITS, OPTIONAL_ATTRS, REQUIRED_ATTRS
+
+    rows = doc_table_rows(DOCS.read_text(encoding="utf-8"))
+    for name in (*REQUIRED_ATTRS, *OPTIONAL_ATTRS):
+        assert name in rows, f"{name} is not documented"
+    for name, (low, high, lo_inc, hi_inc) in {**_LIMITS, **_OPTIONAL_LIMITS}.items():
+        expected = f"{'[' if lo_inc else '('}{low:g}, {high:g}{']' if hi_inc else ')'}"
+        assert rows[name][-1] == expected, (name, rows[name][-1], expected)
 
 
 # --------------------------------------------------------------------------- raw dumps
@@ -904,3 +936,51 @@ def test_sidecar_without_required_grid_attributes_is_a_grid_error(tmp_path):
     sidecar = write_dump(tmp_path, attrs={"part_id": "KFP-3001"})
     with pytest.raises(GridError, match=r"invalid scan grid in .*dump\.json, 4 problems: .*`velocity_m_s`"):
         import_raw(sidecar)
+
+
+# --------------------------------------------------------------------------- odds and ends
+
+
+def test_not_enough_memory_suggests_lazy(tmp_path, monkeypatch):
+    path = save_grid(plate(), tmp_path / "KFP.nc")
+
+    def no_memory(self, **kwargs):
+        raise MemoryError
+
+    monkeypatch.setattr(xr.Dataset, "load", no_memory)
+    with pytest.raises(FileFormatError, match=r"not enough memory to load .*KFP\.nc .*open it with lazy=True"):
+        open_grid(path, lazy=False)
+
+
+def test_zarr_v2_store_is_read(tmp_path):
+    g = plate()
+    g.to_zarr(tmp_path / "old.zarr", zarr_format=2, consolidated=True)
+    back = open_grid(tmp_path / "old.zarr")
+    xr.testing.assert_identical(back["ascan"], g["ascan"])
+    assert back["missing"].dtype == bool
+
+
+def test_open_argument_types(tmp_path):
+    with pytest.raises(TypeError, match=r"`path` must be a non-empty str or os.PathLike, got 42"):
+        open_grid(42)
+    with pytest.raises(TypeError, match=r"`path` must be a non-empty str or os.PathLike, got ''"):
+        open_grid("")
+    path = save_grid(plate(), tmp_path / "KFP.nc")
+    with pytest.raises(TypeError, match=r"`lazy` must be True, False or None, got 'yes'"):
+        open_grid(path, lazy="yes")
+    with pytest.raises(TypeError, match=r"`validate` must be True or False, got 1"):
+        open_grid(path, validate=1)
+
+
+def test_raw_import_lazy_through_open_grid_with_chunks(tmp_path):
+    sidecar = write_dump(tmp_path, order=("time", "index", "scan"), dtype="<f4")
+    g = open_grid(sidecar, chunks={"scan": 2})
+    assert g["ascan"].chunks == ((2, 1), (4,), (5,))
+    np.testing.assert_array_equal(g["ascan"].values, REF.astype(np.float32))
+
+
+def test_package_exports_the_io_functions():
+    import ndtmap
+
+    assert (ndtmap.open_grid, ndtmap.save_grid, ndtmap.import_raw, ndtmap.export_raw) == (
+        open_grid, save_grid, import_raw, export_raw)

@@ -86,7 +86,7 @@ _SIDECAR_MAX_BYTES = 64 * 2**20  # a sidecar is a small text file; refuse to par
 _STORAGE_CHUNK_BYTES = 4 * 2**20  # on-disk chunks: small enough for quick access to one B-scan
 _DASK_CHUNK_BYTES = 64 * 2**20  # in-memory work units of lazy grids
 _FALLBACK_MEMORY_BYTES = 4 * 2**30  # used when the total memory cannot be read
-_NETCDF_COMPRESSION = {"zlib": True, "complevel": 4, "shuffle": True, "fletcher32": True}
+_NETCDF_COMPRESSION = {"zlib": True, "complevel": 1, "shuffle": True, "fletcher32": True}
 _SIDECAR_REQUIRED = ("format", "version", "data_file", "dtype", "shape", "axis_order", "coords", "signal", "attrs")
 _SIDECAR_OPTIONAL = ("byte_offset", "fsh_per_count", "missing", "description")
 _SIDECAR_COORDS = {"scan": "scan_mm", "index": "index_mm", "time": "time_us"}
@@ -509,11 +509,42 @@ def _check_netcdf_attrs(ds: xr.Dataset) -> None:
         raise FileFormatError("cannot write the grid to NetCDF: " + "; ".join(problems))
 
 
+def _is_regular(blocks: tuple[int, ...]) -> bool:
+    return all(b == blocks[0] for b in blocks[:-1]) and blocks[-1] <= blocks[0]
+
+
+def _largest_divisor_at_most(n: int, limit: int) -> int:
+    for d in range(max(1, min(n, limit)), 0, -1):
+        if n % d == 0:
+            return d
+    return 1  # pragma: no cover - 1 divides everything
+
+
 def _prepare(ds: xr.Dataset) -> tuple[xr.Dataset, tuple[int, int]]:
-    """Drop stale encodings; return the dataset and its on-disk (scan, index) chunk sizes."""
+    """Drop stale encodings; return the dataset and its on-disk (scan, index) chunk sizes.
+
+    For a dask-backed grid the on-disk chunks divide the dask chunks, so every block is
+    written as whole stored chunks without rechunking (a rechunk across block borders
+    can hold much of the grid in memory at once). Irregular or time-split dask chunks
+    are rechunked to regular ones holding whole A-scans.
+    """
     out = ds.drop_encoding()
     shape = tuple(int(out.sizes[d]) for d in DIMS)
-    return out, _storage_chunks(shape, out["ascan"].dtype.itemsize)
+    itemsize = out["ascan"].dtype.itemsize
+    storage = _storage_chunks(shape, itemsize)
+    if not _is_lazy(out):
+        return out, storage
+    blocks = out["ascan"].chunksizes if out["ascan"].chunks is not None else {}
+    if blocks and len(blocks["time"]) == 1 and _is_regular(blocks["scan"]) and _is_regular(blocks["index"]):
+        per_chunk = max(1, _STORAGE_CHUNK_BYTES // max(1, shape[2] * itemsize))
+        s_index = _largest_divisor_at_most(blocks["index"][0], storage[1])
+        s_scan = _largest_divisor_at_most(blocks["scan"][0], max(1, per_chunk // s_index))
+        storage = (s_scan, s_index)
+        out = out.chunk({"scan": blocks["scan"], "index": blocks["index"]})  # other variables alike
+    else:
+        c_scan, c_index = _dask_chunks(shape, itemsize, storage)
+        out = out.chunk({"scan": c_scan, "index": c_index, "time": -1})
+    return out, storage
 
 
 def _var_chunks(var: xr.Variable, storage: tuple[int, int]) -> tuple[int, ...]:
@@ -536,10 +567,6 @@ def _write_zarr(ds: xr.Dataset, target: Path, *, compress: bool) -> None:
     from zarr.codecs import BloscCodec, Crc32cCodec
 
     out, storage = _prepare(ds)
-    if _is_lazy(out):
-        shape = tuple(int(out.sizes[d]) for d in DIMS)
-        c_scan, c_index = _dask_chunks(shape, out["ascan"].dtype.itemsize, storage)
-        out = out.chunk({"scan": c_scan, "index": c_index, "time": -1})
     compressors = (BloscCodec(cname="zstd", clevel=3, shuffle="shuffle"), Crc32cCodec()) if compress else None
     encoding: dict[str, dict[str, Any]] = {}
     for name, var in out.data_vars.items():
@@ -659,7 +686,7 @@ def save_grid(
         Replace an existing file (or Zarr store) of that name. The file the
         grid was read from is never overwritten.
     compress : bool, default True
-        Lossless compression: zlib level 4 with byte shuffle and a Fletcher-32
+        Lossless compression: zlib level 1 with byte shuffle and a Fletcher-32
         checksum per chunk for NetCDF; Blosc-zstd with shuffle and a CRC32C
         checksum for Zarr. False writes plain, uncompressed data.
 
@@ -1150,12 +1177,20 @@ def export_raw(
             doc["missing"] = where.tolist()
     doc["attrs"] = {str(k): jsonable(v) for k, v in ds.attrs.items()}
 
-    def write_data(temp: Path) -> None:
+    n_scan = int(ds.sizes["scan"])
+    if values.chunks is not None:  # follow the dask blocks along `scan`, each computed once
+        steps = list(values.chunksizes["scan"])
+    else:
         step = max(1, _DASK_CHUNK_BYTES // max(1, int(ds.sizes["index"]) * int(ds.sizes["time"]) * target.itemsize))
+        steps = [min(step, n_scan - start) for start in range(0, n_scan, step)]
+
+    def write_data(temp: Path) -> None:
         with open(temp, "wb") as fh:
-            for start in range(0, int(ds.sizes["scan"]), step):
-                block = np.asarray(values.isel(scan=slice(start, start + step)).values)
+            start = 0
+            for size in steps:
+                block = np.asarray(values.isel(scan=slice(start, start + size)).values)
                 np.ascontiguousarray(block, dtype=target).tofile(fh)
+                start += size
 
     def write_sidecar(temp: Path) -> None:
         temp.write_text(json.dumps(doc, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")

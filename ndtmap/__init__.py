@@ -31,6 +31,7 @@ from .grid import (
     missing_ascans,
     validate_grid,
 )
+from .io import export_raw, import_raw, open_grid, save_grid
 from .provenance import read_provenance, with_step
 from .sizing_table import size_indications
 
@@ -62,4 +63,8 @@ __all__ = [
     "read_provenance",
     "with_step",
     "size_indications",
+    "open_grid",
+    "save_grid",
+    "import_raw",
+    "export_raw",
 ]

@@ -94,6 +94,8 @@ OPTIONAL_ATTRS: dict[str, tuple[str, str]] = {
     "attenuation_db_per_mm": ("one-way material attenuation", "dB/mm"),
     "digitiser_full_scale_fsh": ("digitiser full scale (clipping level)", "%FSH"),
     "operator_notes": ("free text from the acquisition", "text"),
+    "water_path_mm": ("water path (immersion or water column) from probe to part surface", "mm"),
+    "water_velocity_m_s": ("sound velocity in the water path", "m/s"),
 }
 
 WAVE_MODES = ("longitudinal", "shear")
@@ -114,6 +116,8 @@ _OPTIONAL_LIMITS: dict[str, tuple[float, float, bool, bool]] = {
     "gain_db": (-200.0, 200.0, True, True),
     "attenuation_db_per_mm": (0.0, 100.0, True, True),
     "digitiser_full_scale_fsh": (0.0, 1e6, False, True),
+    "water_path_mm": (0.0, 1e4, True, True),
+    "water_velocity_m_s": (100.0, 20000.0, False, True),
 }
 
 _UNIFORM_RTOL = 1e-3
@@ -201,7 +205,7 @@ def _check_coord(ds: xr.Dataset, name: str, problems: list[str]) -> None:
             kind = "repeats a value" if steps[where] == 0 else "decreases"
             problems.append(
                 f"coordinate `{name}` must be strictly increasing but {kind} at position {where + 1} "
-                f"({values[where]!r} then {values[where + 1]!r}); sort with ds.sortby({name!r}) "
+                f"({float(values[where])!r} then {float(values[where + 1])!r}); sort with ds.sortby({name!r}) "
                 "or remove duplicate positions"
             )
         elif name == "time":
@@ -285,16 +289,18 @@ def _check_ascan(ds: xr.Dataset, problems: list[str], *, check_values: bool) -> 
     if 0 in a.shape:
         problems.append(f"`ascan` is empty (shape {dict(zip(a.dims, a.shape, strict=True))})")
         return
-    if check_values and np.issubdtype(a.dtype, np.floating):
-        missing = missing_ascans(ds)
-        if bool(missing.all()):
-            problems.append(
-                "every A-scan is missing (NaN); the file holds no usable data"
-            )
+    mask_ok = True
     if "missing" in ds.data_vars:
         m = ds["missing"]
         if m.dims != ("scan", "index") or m.dtype != bool:
+            mask_ok = False
             problems.append(f"data variable `missing` must be boolean on ('scan', 'index'), has {m.dims} {m.dtype}")
+    if check_values and mask_ok and (np.issubdtype(a.dtype, np.floating) or "missing" in ds.data_vars):
+        missing = missing_ascans(ds)
+        if bool(missing.all()):
+            problems.append(
+                "every A-scan is missing (NaN or marked in `missing`); the file holds no usable data"
+            )
 
 
 def grid_problems(ds: Any, *, check_values: bool = True) -> list[str]:

@@ -194,6 +194,109 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 
 # --------------------------------------------------------------------------
+# map
+# --------------------------------------------------------------------------
+def _open_valid(path: Path, args: argparse.Namespace) -> Any:
+    from .io import open_grid
+
+    chunks = {"scan": args.chunk_scan} if getattr(args, "chunk_scan", None) else None
+    return open_grid(path, chunks=chunks)
+
+
+def cmd_map(args: argparse.Namespace) -> int:
+    from .gates import Gate
+    from .maps import map_by_kind, map_dataset
+
+    out = Path(args.output)
+    suffix = out.suffix.lower()
+    if suffix not in (".nc", ".png", ".svg", ".pdf", ".html"):
+        raise NdtmapError(f"`-o` must end in .nc, .png, .svg, .pdf or .html, got {str(out)!r}")
+    grid = _open_valid(args.path, args)
+    start, end = args.gate_mm
+    threshold = 20.0 if args.threshold_fsh is None else args.threshold_fsh
+    gate = Gate("gate", start, end, unit="mm", threshold_fsh=threshold, mode=args.mode)
+    options: dict[str, Any] = {"detect": args.detect}
+    if args.kind == "thickness":
+        if args.reference_gate_mm is not None:
+            r0, r1 = args.reference_gate_mm
+            options["reference_gate"] = Gate("reference", r0, r1, unit="mm", threshold_fsh=threshold, mode=args.mode)
+            options["method"] = args.thickness_method or "echo-to-echo"
+        elif args.thickness_method not in (None, "first-echo"):
+            raise NdtmapError(f"--thickness-method {args.thickness_method} needs --reference-gate-mm START END")
+    elif args.reference_gate_mm is not None or args.thickness_method is not None:
+        raise NdtmapError("--reference-gate-mm and --thickness-method apply only to --kind thickness")
+    if args.kind == "backwall-loss" and args.nominal_fsh is not None:
+        options["nominal_fsh"] = args.nominal_fsh
+    elif args.nominal_fsh is not None:
+        raise NdtmapError("--nominal-fsh applies only to --kind backwall-loss")
+    result = map_by_kind(grid, args.kind, gate, **options).compute()
+    if suffix == ".nc":
+        from .io import save_map
+
+        save_map(map_dataset(result), out)
+    else:
+        from .export import write_figure
+        from .figures import map_figure
+
+        write_figure(map_figure(result, title=f"{args.kind} map, gate {start:g}-{end:g} mm"), out)
+    values = result.values
+    import numpy as np
+
+    finite = values[np.isfinite(values)]
+    unit = result.attrs.get("units", "")
+    stats = (f"min {finite.min():.2f} {unit}, median {np.median(finite):.2f} {unit}, max {finite.max():.2f} {unit}"
+             if finite.size else "no finite values (nothing triggered the gate)")
+    print(f"wrote {out}: {args.kind} map {result.sizes['scan']} x {result.sizes['index']}, {stats}")
+    print(f"caution: {CAUTION}")
+    return EXIT_OK
+
+
+# --------------------------------------------------------------------------
+# indications
+# --------------------------------------------------------------------------
+def cmd_indications(args: argparse.Namespace) -> int:
+    from .procedure import load_procedure, procedure_from_options, run_procedure
+    from .tables import indications_csv, indications_text
+
+    grid = _open_valid(args.path, args)
+    if args.procedure is not None:
+        if args.gate_mm is not None or args.threshold_fsh is not None:
+            raise NdtmapError("give either --procedure or --gate-mm/--threshold-fsh, not both")
+        procedure = load_procedure(args.procedure)
+    else:
+        if args.gate_mm is None or args.threshold_fsh is None:
+            raise NdtmapError("--gate-mm START END and --threshold-fsh PCT are required (or --procedure FILE)")
+        procedure = procedure_from_options(
+            gate_mm=args.gate_mm,
+            threshold_fsh=args.threshold_fsh,
+            mode=args.mode,
+            backwall_gate_mm=args.backwall_gate_mm,
+            rules=str(Path(args.rules).resolve()) if args.rules else None,
+            min_area_mm2=args.min_area_mm2,
+            detect=args.detect,
+        )
+    analysis = run_procedure(grid, procedure, source=str(args.path))
+    if args.format == "json":
+        print(json.dumps(analysis.indications_document(), indent=2, allow_nan=False))
+    elif args.format == "csv":
+        sys.stdout.write(indications_csv(analysis.indications))
+    else:
+        doc = analysis.indications_document()
+        gate = doc["gate"]
+        print(f"{args.path}: {len(analysis.indications)} indication(s); gate {gate['start']:g}-{gate['end']:g} "
+              f"{gate['unit']}, threshold {procedure.threshold_fsh if procedure.threshold_fsh is not None else procedure.threshold_db} "
+              f"{'%FSH' if procedure.threshold_fsh is not None else 'dB'}")
+        print(indications_text(analysis.indications))
+        if analysis.screening is not None:
+            print(f"screening ({analysis.screening.get('rules') or 'rules'}): {analysis.screening['overall']}")
+        for note in analysis.notes:
+            print(f"note: {note}")
+        for caution in analysis.cautions:
+            print(f"caution: {caution}")
+    return EXIT_OK
+
+
+# --------------------------------------------------------------------------
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of ``ndtmap`` (for documentation and tests)."""
     parser = _Parser(
@@ -218,6 +321,39 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("directory", type=Path, help="folder to write the samples into")
     p.add_argument("--only", nargs="+", metavar="NAME", help="build only these samples")
     p.set_defaults(func=cmd_make_samples)
+
+    p = sub.add_parser("map", help="write one C-scan map (NetCDF, or a figure)")
+    p.add_argument("path", type=Path, help="grid file")
+    p.add_argument("--kind", required=True, choices=("amplitude", "depth", "thickness", "backwall-loss"))
+    p.add_argument("--gate-mm", required=True, nargs=2, type=float, metavar=("START", "END"),
+                   help="gate window as depth below the surface, mm")
+    p.add_argument("--threshold-fsh", type=float, metavar="PCT", help="gate threshold, %%FSH (default 20)")
+    p.add_argument("--mode", default="peak", choices=("peak", "first-crossing"), help="gate detection mode")
+    p.add_argument("--detect", default="rectified", choices=("rectified", "envelope"), help="detection signal")
+    p.add_argument("--reference-gate-mm", nargs=2, type=float, metavar=("START", "END"),
+                   help="thickness: a second gate on the first back-wall echo or the interface echo")
+    p.add_argument("--thickness-method", choices=("first-echo", "echo-to-echo", "interface-to-backwall"),
+                   help="thickness: how the wall is measured (default first-echo; echo-to-echo with a reference gate)")
+    p.add_argument("--nominal-fsh", type=float, metavar="PCT",
+                   help="backwall-loss: nominal back-wall level (default: median over the scan)")
+    p.add_argument("--chunk-scan", type=int, metavar="N", help="open lazily with N scan lines per chunk")
+    p.add_argument("-o", "--output", required=True, metavar="OUT", help="output: .nc, .png, .svg, .pdf or .html")
+    p.set_defaults(func=cmd_map)
+
+    p = sub.add_parser("indications", help="detect and size indications, print a table")
+    p.add_argument("path", type=Path, help="grid file")
+    p.add_argument("--gate-mm", nargs=2, type=float, metavar=("START", "END"), help="flaw gate, depth mm")
+    p.add_argument("--threshold-fsh", type=float, metavar="PCT", help="detection threshold, %%FSH")
+    p.add_argument("--backwall-gate-mm", nargs=2, type=float, metavar=("START", "END"),
+                   help="back-wall gate, depth mm (DGS reference, back-wall loss)")
+    p.add_argument("--rules", metavar="FILE", help="screening rules (TOML)")
+    p.add_argument("--procedure", type=Path, metavar="FILE", help="a procedure file instead of the options above")
+    p.add_argument("--mode", default="peak", choices=("peak", "first-crossing"), help="gate detection mode")
+    p.add_argument("--detect", default="rectified", choices=("rectified", "envelope"), help="detection signal")
+    p.add_argument("--min-area-mm2", type=float, default=0.0, help="drop indications smaller than this")
+    p.add_argument("--format", default="table", choices=("table", "csv", "json"))
+    p.add_argument("--chunk-scan", type=int, metavar="N", help="open lazily with N scan lines per chunk")
+    p.set_defaults(func=cmd_indications)
 
     for register in _EXTRA_COMMANDS:
         register(sub)

@@ -49,6 +49,9 @@ from .grid import (
 from .provenance import jsonable, with_step
 
 __all__ = [
+    "save_map",
+    "atomic_write_bytes",
+    "atomic_write_text",
     "open_grid",
     "save_grid",
     "import_raw",
@@ -660,6 +663,82 @@ def _write_atomically(
         raise FileFormatError(
             f"could not write {final} ({_reason(exc)}); any previous file under that name is unchanged"
         ) from None
+
+
+def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> Path:
+    """Write `data` to `path` atomically: a temporary file in the same folder, then a rename.
+
+    Parameters
+    ----------
+    path : path-like
+        Final file name; its folder must exist.
+    data : bytes
+        The content.
+
+    Returns
+    -------
+    pathlib.Path
+        `path`.
+
+    Raises
+    ------
+    FileFormatError
+        When the file cannot be written; a previous file under that name is
+        left unchanged and no temporary file remains.
+    """
+    final = _as_path("path", path)
+    if not final.parent.is_dir():
+        raise FileFormatError(f"cannot write {final}: the folder {final.parent} does not exist")
+
+    def write(temp: Path) -> None:
+        with open(temp, "wb") as fh:
+            fh.write(data)
+
+    _write_atomically(final, write, is_dir=False)
+    return final
+
+
+def save_map(ds: xr.Dataset, path: str | os.PathLike, *, overwrite: bool = True) -> Path:
+    """Write a result dataset (a map or section, see :func:`ndtmap.maps.map_dataset`) to NetCDF atomically.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The result; its attributes must be netCDF-compatible.
+    path : path-like
+        Output file, ending in ``.nc``.
+    overwrite : bool, default True
+        Replace an existing file (atomically).
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    FileFormatError
+        For another extension, an existing file with ``overwrite=False``, or
+        a failed write (the previous file is then unchanged).
+    """
+    final = _as_path("path", path)
+    if final.suffix.lower() != ".nc":
+        raise FileFormatError(f"maps are written as NetCDF: `path` must end in .nc, got {str(final)!r}")
+    if not final.parent.is_dir():
+        raise FileFormatError(f"cannot write {final}: the folder {final.parent} does not exist")
+    if final.exists() and not overwrite:
+        raise FileFormatError(f"{final} exists; pass overwrite=True or choose another name")
+    _check_netcdf_attrs(ds)
+
+    def write(temp: Path) -> None:
+        ds.to_netcdf(temp, engine="h5netcdf")
+
+    _write_atomically(final, write, is_dir=False)
+    return final
+
+
+def atomic_write_text(path: str | os.PathLike, text: str) -> Path:
+    """Write UTF-8 `text` to `path` atomically (see :func:`atomic_write_bytes`)."""
+    return atomic_write_bytes(path, text.encode("utf-8"))
 
 
 def save_grid(

@@ -138,7 +138,9 @@ def _format_summary(s: dict[str, Any]) -> str:
     lines.append(f"  time         {rng(s.get('time_us'), 'us')}")
     lines.append(f"  depth        {rng(s.get('depth_mm'), 'mm')} (from velocity and beam angle)")
     if "dtype" in s:
-        lines.append(f"  samples      {s['dtype']}, signal {s.get('signal')}, {'lazy' if s.get('lazy') else 'in memory'}")
+        lines.append(
+            f"  samples      {s['dtype']}, signal {s.get('signal')}, {'lazy' if s.get('lazy') else 'in memory'}"
+        )
     if "missing_ascans" in s:
         lines.append(f"  missing      {s['missing_ascans']} A-scan(s)")
     attrs = s.get("attrs") or {}
@@ -244,8 +246,11 @@ def cmd_map(args: argparse.Namespace) -> int:
 
     finite = values[np.isfinite(values)]
     unit = result.attrs.get("units", "")
-    stats = (f"min {finite.min():.2f} {unit}, median {np.median(finite):.2f} {unit}, max {finite.max():.2f} {unit}"
-             if finite.size else "no finite values (nothing triggered the gate)")
+    stats = (
+        f"min {finite.min():.2f} {unit}, median {np.median(finite):.2f} {unit}, max {finite.max():.2f} {unit}"
+        if finite.size
+        else "no finite values (nothing triggered the gate)"
+    )
     print(f"wrote {out}: {args.kind} map {result.sizes['scan']} x {result.sizes['index']}, {stats}")
     print(f"caution: {CAUTION}")
     return EXIT_OK
@@ -283,9 +288,11 @@ def cmd_indications(args: argparse.Namespace) -> int:
     else:
         doc = analysis.indications_document()
         gate = doc["gate"]
-        print(f"{args.path}: {len(analysis.indications)} indication(s); gate {gate['start']:g}-{gate['end']:g} "
-              f"{gate['unit']}, threshold {procedure.threshold_fsh if procedure.threshold_fsh is not None else procedure.threshold_db} "
-              f"{'%FSH' if procedure.threshold_fsh is not None else 'dB'}")
+        print(
+            f"{args.path}: {len(analysis.indications)} indication(s); gate {gate['start']:g}-{gate['end']:g} "
+            f"{gate['unit']}, threshold {procedure.threshold_fsh if procedure.threshold_fsh is not None else procedure.threshold_db} "
+            f"{'%FSH' if procedure.threshold_fsh is not None else 'dB'}"
+        )
         print(indications_text(analysis.indications))
         if analysis.screening is not None:
             print(f"screening ({analysis.screening.get('rules') or 'rules'}): {analysis.screening['overall']}")
@@ -325,17 +332,35 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("map", help="write one C-scan map (NetCDF, or a figure)")
     p.add_argument("path", type=Path, help="grid file")
     p.add_argument("--kind", required=True, choices=("amplitude", "depth", "thickness", "backwall-loss"))
-    p.add_argument("--gate-mm", required=True, nargs=2, type=float, metavar=("START", "END"),
-                   help="gate window as depth below the surface, mm")
+    p.add_argument(
+        "--gate-mm",
+        required=True,
+        nargs=2,
+        type=float,
+        metavar=("START", "END"),
+        help="gate window as depth below the surface, mm",
+    )
     p.add_argument("--threshold-fsh", type=float, metavar="PCT", help="gate threshold, %%FSH (default 20)")
     p.add_argument("--mode", default="peak", choices=("peak", "first-crossing"), help="gate detection mode")
     p.add_argument("--detect", default="rectified", choices=("rectified", "envelope"), help="detection signal")
-    p.add_argument("--reference-gate-mm", nargs=2, type=float, metavar=("START", "END"),
-                   help="thickness: a second gate on the first back-wall echo or the interface echo")
-    p.add_argument("--thickness-method", choices=("first-echo", "echo-to-echo", "interface-to-backwall"),
-                   help="thickness: how the wall is measured (default first-echo; echo-to-echo with a reference gate)")
-    p.add_argument("--nominal-fsh", type=float, metavar="PCT",
-                   help="backwall-loss: nominal back-wall level (default: median over the scan)")
+    p.add_argument(
+        "--reference-gate-mm",
+        nargs=2,
+        type=float,
+        metavar=("START", "END"),
+        help="thickness: a second gate on the first back-wall echo or the interface echo",
+    )
+    p.add_argument(
+        "--thickness-method",
+        choices=("first-echo", "echo-to-echo", "interface-to-backwall"),
+        help="thickness: how the wall is measured (default first-echo; echo-to-echo with a reference gate)",
+    )
+    p.add_argument(
+        "--nominal-fsh",
+        type=float,
+        metavar="PCT",
+        help="backwall-loss: nominal back-wall level (default: median over the scan)",
+    )
     p.add_argument("--chunk-scan", type=int, metavar="N", help="open lazily with N scan lines per chunk")
     p.add_argument("-o", "--output", required=True, metavar="OUT", help="output: .nc, .png, .svg, .pdf or .html")
     p.set_defaults(func=cmd_map)
@@ -344,8 +369,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("path", type=Path, help="grid file")
     p.add_argument("--gate-mm", nargs=2, type=float, metavar=("START", "END"), help="flaw gate, depth mm")
     p.add_argument("--threshold-fsh", type=float, metavar="PCT", help="detection threshold, %%FSH")
-    p.add_argument("--backwall-gate-mm", nargs=2, type=float, metavar=("START", "END"),
-                   help="back-wall gate, depth mm (DGS reference, back-wall loss)")
+    p.add_argument(
+        "--backwall-gate-mm",
+        nargs=2,
+        type=float,
+        metavar=("START", "END"),
+        help="back-wall gate, depth mm (DGS reference, back-wall loss)",
+    )
     p.add_argument("--rules", metavar="FILE", help="screening rules (TOML)")
     p.add_argument("--procedure", type=Path, metavar="FILE", help="a procedure file instead of the options above")
     p.add_argument("--mode", default="peak", choices=("peak", "first-crossing"), help="gate detection mode")

@@ -84,8 +84,9 @@ def export_session() -> Iterator[None]:
                 kaleido.stop_sync_server(silence_warnings=True)
 
 
-def figure_bytes(fig: Any, fmt: str, *, width: int | None = None, height: int | None = None,
-                 scale: float | None = None) -> bytes:
+def figure_bytes(
+    fig: Any, fmt: str, *, width: int | None = None, height: int | None = None, scale: float | None = None
+) -> bytes:
     """Render `fig` to PNG, SVG or PDF bytes.
 
     Parameters
@@ -121,8 +122,15 @@ def figure_bytes(fig: Any, fmt: str, *, width: int | None = None, height: int | 
         raise FileFormatError(f"static export to {fmt.upper()} failed: {type(exc).__name__}: {exc}") from None
 
 
-def write_figure(fig: Any, path: str | os.PathLike[str], *, width: int | None = None, height: int | None = None,
-                 scale: float | None = None, plotlyjs: str | bool = True) -> Path:
+def write_figure(
+    fig: Any,
+    path: str | os.PathLike[str],
+    *,
+    width: int | None = None,
+    height: int | None = None,
+    scale: float | None = None,
+    plotlyjs: str | bool = True,
+) -> Path:
     """Write `fig` to `path`; the format follows the extension (.png, .svg, .pdf, .html).
 
     Parameters
@@ -152,8 +160,7 @@ def write_figure(fig: Any, path: str | os.PathLike[str], *, width: int | None = 
     p = Path(path)
     ext = p.suffix.lower().lstrip(".")
     if ext == "html":
-        html = fig.to_html(full_html=True, include_plotlyjs=plotlyjs,
-                           config={"displaylogo": False, "responsive": True})
+        html = fig.to_html(full_html=True, include_plotlyjs=plotlyjs, config={"displaylogo": False, "responsive": True})
         return atomic_write_text(p, html)
     if ext not in STATIC_FORMATS:
         raise FileFormatError(f"figure files must end in .png, .svg, .pdf or .html, got {str(p)!r}")

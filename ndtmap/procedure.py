@@ -184,13 +184,16 @@ class Procedure:
         if (self.threshold_fsh is None) == (self.threshold_db is None):
             raise ProcedureError("give exactly one of `detection.threshold_fsh` and `detection.threshold_db`")
         if self.threshold_fsh is not None:
-            object.__setattr__(self, "threshold_fsh", _wrap(nonnegative_float, "detection.threshold_fsh",
-                                                            self.threshold_fsh))
+            object.__setattr__(
+                self, "threshold_fsh", _wrap(nonnegative_float, "detection.threshold_fsh", self.threshold_fsh)
+            )
         if self.threshold_db is not None:
             object.__setattr__(self, "threshold_db", _wrap(finite_float, "detection.threshold_db", self.threshold_db))
             ref = self.reference
             if ref is None:
-                raise ProcedureError("`detection.threshold_db` needs `detection.reference` ('backwall' or a %FSH level)")
+                raise ProcedureError(
+                    "`detection.threshold_db` needs `detection.reference` ('backwall' or a %FSH level)"
+                )
             if isinstance(ref, str):
                 if ref != "backwall":
                     raise ProcedureError(f"`detection.reference` must be 'backwall' or a number in %FSH, got {ref!r}")
@@ -204,21 +207,29 @@ class Procedure:
         if self.backwall_loss_threshold_db is not None:
             if self.backwall_gate is None:
                 raise ProcedureError("`backwall.loss_threshold_db` needs `backwall.gate`")
-            object.__setattr__(self, "backwall_loss_threshold_db",
-                               _wrap(positive_float, "backwall.loss_threshold_db", self.backwall_loss_threshold_db))
+            object.__setattr__(
+                self,
+                "backwall_loss_threshold_db",
+                _wrap(positive_float, "backwall.loss_threshold_db", self.backwall_loss_threshold_db),
+            )
         object.__setattr__(self, "min_area_mm2", _wrap(nonnegative_float, "detection.min_area_mm2", self.min_area_mm2))
         if isinstance(self.min_positions, bool) or not isinstance(self.min_positions, int) or self.min_positions < 1:
             raise ProcedureError(f"`detection.min_positions` must be a whole number >= 1, got {self.min_positions!r}")
         _wrap(one_of, "detection.detect", self.detect, DETECT_KINDS)
         _wrap(one_of, "sizing.edge", self.edge, EDGE_RULES)
-        object.__setattr__(self, "transfer_correction_db",
-                           _wrap(finite_float, "sizing.transfer_correction_db", self.transfer_correction_db))
+        object.__setattr__(
+            self,
+            "transfer_correction_db",
+            _wrap(finite_float, "sizing.transfer_correction_db", self.transfer_correction_db),
+        )
         if self.velocity_m_s is not None:
-            object.__setattr__(self, "velocity_m_s", _wrap(positive_float, "calibration.velocity_m_s",
-                                                           self.velocity_m_s))
+            object.__setattr__(
+                self, "velocity_m_s", _wrap(positive_float, "calibration.velocity_m_s", self.velocity_m_s)
+            )
         if self.zero_offset_us is not None:
-            object.__setattr__(self, "zero_offset_us", _wrap(finite_float, "calibration.zero_offset_us",
-                                                             self.zero_offset_us))
+            object.__setattr__(
+                self, "zero_offset_us", _wrap(finite_float, "calibration.zero_offset_us", self.zero_offset_us)
+            )
         figures = tuple(self.figures)
         bad = [f for f in figures if f not in FIGURE_KINDS]
         if bad:
@@ -251,11 +262,18 @@ class Procedure:
     def to_dict(self) -> dict[str, Any]:
         """The procedure as nested plain data, in the layout of the TOML file."""
         doc: dict[str, Any] = {
-            "procedure": {"format": PROCEDURE_FORMAT, "name": self.name, "description": self.description,
-                          "first_look": self.first_look},
+            "procedure": {
+                "format": PROCEDURE_FORMAT,
+                "name": self.name,
+                "description": self.description,
+                "first_look": self.first_look,
+            },
         }
-        cal = {k: v for k, v in (("velocity_m_s", self.velocity_m_s), ("zero_offset_us", self.zero_offset_us))
-               if v is not None}
+        cal = {
+            k: v
+            for k, v in (("velocity_m_s", self.velocity_m_s), ("zero_offset_us", self.zero_offset_us))
+            if v is not None
+        }
         if cal:
             doc["calibration"] = cal
         doc["gate"] = [{k: v for k, v in g.to_dict().items() if v is not None} for g in self.gates]
@@ -370,7 +388,7 @@ def parse_procedure(text: str, *, source: str = "<procedure>", base_dir: str | N
         raise ProcedureError(f"{source}: {exc}") from None
     det = doc.get("detection")
     if det is None or "gate" not in det:
-        raise ProcedureError(f"{source}: [detection] with `gate = \"<name>\"` is required")
+        raise ProcedureError(f'{source}: [detection] with `gate = "<name>"` is required')
     bw = doc.get("backwall", {})
     cal = doc.get("calibration", {})
     sizing = doc.get("sizing", {})
@@ -660,8 +678,9 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
 
     proc = procedure
     if proc.velocity_m_s is not None or proc.zero_offset_us is not None:
-        grid = calibrate(grid, velocity_m_s=proc.velocity_m_s, zero_offset_us=proc.zero_offset_us,
-                         note=f"procedure {proc.name}")
+        grid = calibrate(
+            grid, velocity_m_s=proc.velocity_m_s, zero_offset_us=proc.zero_offset_us, note=f"procedure {proc.name}"
+        )
     gates = _gate_map(grid, proc)
     det = gates[proc.detection_gate]
     maps: dict[str, xr.DataArray] = {}
@@ -670,15 +689,18 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
     notes: list[str] = []
     cautions = [CAUTION]
     if proc.first_look:
-        cautions.append("The gates and threshold were derived from the grid (first look), not from a written "
-                        "procedure: " + proc.description)
+        cautions.append(
+            "The gates and threshold were derived from the grid (first look), not from a written "
+            "procedure: " + proc.description
+        )
     backwall_amp = backwall_depth = loss = None
     if proc.backwall_gate is not None:
         bw = gates[proc.backwall_gate]
         backwall_amp = amplitude_map(grid, bw, others=gates, detect=proc.detect).compute()
         backwall_depth = depth_map(grid, bw, others=gates, detect=proc.detect).compute()
-        loss = backwall_loss_map(grid, bw, nominal_fsh=proc.backwall_nominal_fsh, others=gates,
-                                 detect=proc.detect).compute()
+        loss = backwall_loss_map(
+            grid, bw, nominal_fsh=proc.backwall_nominal_fsh, others=gates, detect=proc.detect
+        ).compute()
         maps["backwall_amplitude"] = backwall_amp
         maps["backwall_depth"] = backwall_depth
         maps["backwall_loss"] = loss
@@ -692,8 +714,9 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         kwargs["threshold_fsh"] = proc.threshold_fsh
     else:
         kwargs["threshold_db"] = proc.threshold_db
-        kwargs["reference"] = (float(np.nanmedian(backwall_amp.values)) if proc.reference == "backwall"
-                               else proc.reference)
+        kwargs["reference"] = (
+            float(np.nanmedian(backwall_amp.values)) if proc.reference == "backwall" else proc.reference
+        )
     if backwall_amp is not None:
         kwargs["backwall"] = backwall_amp
         kwargs["backwall_depth_mm"] = backwall_depth
@@ -717,8 +740,16 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         for rec in records:
             if rec["id"] in by_id:
                 rec["screening"] = by_id[rec["id"]].get("statement")
-    return Analysis(grid=grid, procedure=proc, maps=maps, indications=records, screening=screening,
-                    cautions=cautions, notes=notes, source=source)
+    return Analysis(
+        grid=grid,
+        procedure=proc,
+        maps=maps,
+        indications=records,
+        screening=screening,
+        cautions=cautions,
+        notes=notes,
+        source=source,
+    )
 
 
 def procedure_from_options(

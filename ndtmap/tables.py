@@ -60,8 +60,10 @@ def indications_text(records: Sequence[Mapping[str, Any]]) -> str:
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     lines = []
     for n, row in enumerate(rows):
-        cells = [c.rjust(w) if 0 < i < len(row) - 1 and i != 1 else c.ljust(w) for i, (c, w) in
-                 enumerate(zip(row, widths, strict=True))]
+        cells = [
+            c.rjust(w) if 0 < i < len(row) - 1 and i != 1 else c.ljust(w)
+            for i, (c, w) in enumerate(zip(row, widths, strict=True))
+        ]
         lines.append("  ".join(cells).rstrip())
         if n == 0:
             lines.append("  ".join("-" * w for w in widths))

@@ -288,10 +288,13 @@ def cmd_indications(args: argparse.Namespace) -> int:
     else:
         doc = analysis.indications_document()
         gate = doc["gate"]
+        if procedure.threshold_fsh is not None:
+            level = f"{procedure.threshold_fsh:g} %FSH"
+        else:
+            level = f"{procedure.threshold_db:g} dB re {procedure.reference}"
         print(
             f"{args.path}: {len(analysis.indications)} indication(s); gate {gate['start']:g}-{gate['end']:g} "
-            f"{gate['unit']}, threshold {procedure.threshold_fsh if procedure.threshold_fsh is not None else procedure.threshold_db} "
-            f"{'%FSH' if procedure.threshold_fsh is not None else 'dB'}"
+            f"{gate['unit']}, threshold {level}"
         )
         print(indications_text(analysis.indications))
         if analysis.screening is not None:

@@ -76,7 +76,7 @@ def forging_block() -> xr.Dataset:
         FlatBottomHole(70.0, 55.0, 120.0, 3.0, label="R2"),
         FlatBottomHole(95.0, 20.0, 140.0, 4.0, label="R3"),
         # a partly bonded planar reflector (oxide-filled): reflects 40 % of the wave
-        PlanarReflector.rectangle((40.0, 56.0), (50.0, 62.0), 55.0, reflectivity=-0.4, label="P1 planar reflector"),
+        PlanarReflector.rectangle((14.0, 30.0), (52.0, 64.0), 55.0, reflectivity=-0.4, label="P1 planar reflector"),
     ]
     plan = ScanPlan.raster((0.0, 120.0), (0.0, 80.0), 2.5, (0.0, 57.0), sampling_mhz=20.0)
     return simulate_scan(
@@ -85,7 +85,7 @@ def forging_block() -> xr.Dataset:
         Part(160.0),
         reflectors,
         plan,
-        noise=Noise(grain_fsh=0.35, electronic_fsh=0.15),
+        noise=Noise(grain_fsh=0.2, electronic_fsh=0.08),
         backwall_fsh=90.0,
         dtype="int16",
         seed=317,
@@ -100,10 +100,10 @@ def forging_block() -> xr.Dataset:
 def corroded_wall() -> xr.Dataset:
     """Wall section KFP-PW-1180: far-side wall loss for thickness mapping."""
     losses = (
-        WallLoss(30.0, 22.0, 14.0, 3.5),
-        WallLoss(62.0, 40.0, 9.0, 5.0),
-        WallLoss(80.0, 14.0, 18.0, 2.0),
-        WallLoss(48.0, 45.0, 6.0, 1.5),
+        WallLoss(30.0, 22.0, 28.0, 3.0),
+        WallLoss(64.0, 40.0, 22.0, 4.5),
+        WallLoss(82.0, 14.0, 26.0, 2.0),
+        WallLoss(46.0, 46.0, 12.0, 1.2),
     )
     plan = ScanPlan.raster((0.0, 100.0), (0.0, 60.0), 1.25, (0.0, 9.0), sampling_mhz=50.0)
     return simulate_scan(

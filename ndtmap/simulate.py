@@ -694,8 +694,7 @@ class _Histogram:
 
 def _point_wavelet(model: _Model) -> np.ndarray:
     """Wavelet of a single small patch: the time derivative of the pulse, unit envelope peak."""
-    half = model.pad
-    t = np.arange(-half, half + model.dt_os / 2, model.dt_os)
+    t = _centred_times(model.pad, model.dt_os)
     p = tone_burst(t, model.probe.frequency_mhz, model.probe.bandwidth)
     h = np.gradient(p, model.dt_os)
     env = np.abs(signal.hilbert(h))
@@ -704,9 +703,14 @@ def _point_wavelet(model: _Model) -> np.ndarray:
 
 def _plane_wavelet(model: _Model) -> np.ndarray:
     """Wavelet of a plane echo computed analytically (the interface): the pulse itself."""
-    half = model.pad
-    t = np.arange(-half, half + model.dt_os / 2, model.dt_os)
+    t = _centred_times(model.pad, model.dt_os)
     return -tone_burst(t, model.probe.frequency_mhz, model.probe.bandwidth)
+
+
+def _centred_times(half: float, dt: float) -> np.ndarray:
+    """Sample times -n dt .. n dt with n dt >= half: t = 0 falls exactly on the centre sample."""
+    n = int(math.ceil(half / dt))
+    return np.arange(-n, n + 1) * dt
 
 
 def _render(hist: np.ndarray, wavelet: np.ndarray) -> np.ndarray:
@@ -1309,7 +1313,7 @@ def _grain_noise(rng, model: _Model, plan: ScanPlan, part: Part, scan, index, ti
     white = ndimage.gaussian_filter(white, (sig[0], sig[1], 0.0), mode="wrap")
     white = white[pad[0] : pad[0] + n_scan, pad[1] : pad[1] + n_index]
     dt = 1.0 / plan.sampling_mhz
-    t = np.arange(-model.pad, model.pad + dt / 2, dt)
+    t = _centred_times(model.pad, dt)
     pulse = tone_burst(t, model.probe.frequency_mhz, model.probe.bandwidth)
     colored = signal.fftconvolve(white, pulse[None, None, :], mode="same", axes=2)
     colored /= max(float(colored.std()), 1e-12)
@@ -1326,7 +1330,7 @@ def _grain_noise(rng, model: _Model, plan: ScanPlan, part: Part, scan, index, ti
 def _band_noise(rng, model: _Model, shape, time) -> np.ndarray:
     white = rng.standard_normal(shape)
     dt = float(time[1] - time[0]) if time.size > 1 else 0.02
-    t = np.arange(-model.pad, model.pad + dt / 2, dt)
+    t = _centred_times(model.pad, dt)
     pulse = tone_burst(t, model.probe.frequency_mhz, model.probe.bandwidth)
     out = signal.fftconvolve(white, pulse[None, None, :], mode="same", axes=2)
     return out / max(float(out.std()), 1e-12)

@@ -440,7 +440,14 @@ def _amplitude_record(
             if b.not_larger_than_beam:
                 _add_flag(rec, "beam_limited_20db")
             if b.raw.lower_bound:
-                _add_flag(rec, "at_scan_edge")
+                # The -20 dB level was not reached before the map boundary. When the region and its 6 dB
+                # lines are clear of the edge this is a 20 dB matter only (often: the level lies in the noise),
+                # so it is a note on the 20 dB size, not the `at_scan_edge` flag of the indication.
+                rec[f"length_{axis}_20db_mm"] = None
+                notes.append(
+                    f"along {axis} the amplitude does not fall to -20 dB ({0.1 * ind.peak_fsh:.2f} %FSH) before the "
+                    "edge of the map (or the noise stays above that level): no 20 dB size"
+                )
             if b.raw.data_gap:
                 _add_flag(rec, "data_gap")
         rec["length_20db_uncertainty_mm"] = max(unc20) if unc20 else None

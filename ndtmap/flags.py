@@ -35,6 +35,10 @@ Rules used here (each also stated in the function that applies it):
 ``beam_limited_20db``
     The 20 dB drop length is not larger than the -20 dB beam width: the
     beam-corrected 20 dB size is not given.
+``backwall_echo``
+    The depth is the nominal back-wall depth (set by
+    :func:`ndtmap.echoes.classify_echoes`, which also adds ``repeat_echo``
+    when the A-scan holds a stronger echo at 1/2 or 1/3 of the depth).
 """
 
 from __future__ import annotations
@@ -77,6 +81,8 @@ FLAG_MEANINGS: dict[str, str] = {
     "low_snr": "peak less than 6 dB above the noise level of the map: may be noise",
     "data_gap": "missing A-scans inside or next to the sized region or on a sizing line: sizes may be wrong there",
     "beam_limited_20db": "20 dB drop length not larger than the -20 dB beam width: no beam-corrected 20 dB size",
+    "backwall_echo": "the echo lies at the nominal back-wall depth: a geometry echo of the back wall reached by "
+    "the gate, not a reflector inside the wall",
 }
 
 #: The flag names, in report order.

@@ -732,6 +732,19 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         transfer_correction_db=proc.transfer_correction_db,
         **kwargs,
     )
+    from .echoes import classify_echoes
+
+    nominal = grid_attr(grid, "part_thickness_mm")
+    if not isinstance(nominal, float) and backwall_depth is not None:
+        finite = np.asarray(backwall_depth.values, dtype=np.float64)
+        finite = finite[np.isfinite(finite)]
+        nominal = float(np.median(finite)) if finite.size else None
+    classify_echoes(grid, records, backwall_depth_mm=nominal if isinstance(nominal, float) else None)
+    if isinstance(nominal, float) and det.unit == "mm" and det.follows is None and det.start < nominal < det.end:
+        notes.append(
+            f"the detection gate {det.name!r} ({det.start:g}-{det.end:g} mm) contains the back wall at about "
+            f"{nominal:g} mm: the back-wall echo itself is detected (a geometry echo); end the gate above it"
+        )
     screening = None
     if rules is not None:
         result = screen(records, rules, scanned_area_mm2=scanned_area_mm2(maps["amplitude"]))

@@ -45,7 +45,7 @@ _NOTE = "Synthetic scan made by ndtmap's simulator for demonstration; not a real
 def plate_laminations() -> xr.Dataset:
     """Plate KFP-PL-2041: laminations in 25 mm plate."""
     reflectors = [
-        PlanarReflector.rectangle((22.0, 52.0), (14.0, 34.0), 12.5, label="L1 mid-wall lamination"),
+        PlanarReflector.rectangle((22.0, 52.0), (14.0, 34.0), 11.0, label="L1 mid-wall lamination"),
         PlanarReflector.ellipse((86.0, 52.0), (12.0, 8.0), 17.0, label="L2 lamination"),
         PlanarReflector.rectangle((70.0, 78.0), (12.0, 18.0), 9.0, label="L3 small lamination"),
         PlanarReflector.rectangle((104.0, 130.0), (60.0, 74.0), 14.0, label="L4 lamination at scan edge"),

@@ -142,11 +142,17 @@ def classify_echoes(
         if backwall_depth_mm is not None:
             tol = max(tolerance_mm, tolerance_fraction * backwall_depth_mm) + half
             if abs(d - backwall_depth_mm) <= tol:
-                _add(rec, "backwall_echo",
-                     f"the echo lies at the back-wall depth ({backwall_depth_mm:g} mm): a geometry echo of the "
-                     "back wall reached by the gate, not a reflector inside the wall")
-        a = np.abs(np.asarray(signal.sel(scan=rec["scan_mm"], index=rec["index_mm"], method="nearest").values,
-                              dtype=np.float64))
+                _add(
+                    rec,
+                    "backwall_echo",
+                    f"the echo lies at the back-wall depth ({backwall_depth_mm:g} mm): a geometry echo of the "
+                    "back wall reached by the gate, not a reflector inside the wall",
+                )
+        a = np.abs(
+            np.asarray(
+                signal.sel(scan=rec["scan_mm"], index=rec["index_mm"], method="nearest").values, dtype=np.float64
+            )
+        )
         if not np.all(np.isfinite(a)):
             continue
         for k in multiples:
@@ -158,8 +164,11 @@ def classify_echoes(
             primary = float(a[sel].max())
             if primary >= peak:
                 at = float(depth[sel][int(np.argmax(a[sel]))])
-                _add(rec, "repeat_echo",
-                     f"the A-scan at the peak position holds a stronger echo ({primary:.1f} %FSH) at {at:.1f} mm, "
-                     f"1/{k} of this depth: probably its repeat echo (multiple reflection), not a separate reflector")
+                _add(
+                    rec,
+                    "repeat_echo",
+                    f"the A-scan at the peak position holds a stronger echo ({primary:.1f} %FSH) at {at:.1f} mm, "
+                    f"1/{k} of this depth: probably its repeat echo (multiple reflection), not a separate reflector",
+                )
                 break
     return records

@@ -121,7 +121,7 @@ def grid_summary(ds: Any, *, source: str) -> dict[str, Any]:
         problems.append(str(exc))
     out["problems"] = problems
     out["valid"] = not problems
-    return out
+    return jsonable(out)
 
 
 def _format_summary(s: dict[str, Any]) -> str:

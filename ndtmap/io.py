@@ -22,10 +22,12 @@ opened lazily as dask arrays whose chunks hold whole A-scans (the full
 
 from __future__ import annotations
 
+import gc
 import json
 import math
 import os
 import shutil
+import sys
 import uuid
 from collections.abc import Callable, Iterator, Mapping
 from concurrent.futures import ThreadPoolExecutor
@@ -327,6 +329,32 @@ def _finish(ds: xr.Dataset, path: Path, *, lazy: bool, validate: bool, data_file
     return ds
 
 
+@contextmanager
+def _quiet_half_open_files() -> Iterator[None]:
+    """Collect file objects a failed open left half-built, without their clean-up errors reaching stderr.
+
+    When h5netcdf fails to open a damaged file, the half-constructed file object raises from its
+    destructor later ("Exception ignored in ... File.close"), which would print a traceback into the
+    user's terminal. The garbage is collected here, inside the failed open, with those clean-up
+    errors of h5netcdf/h5py objects silenced; any other unraisable exception passes through.
+    """
+    previous = sys.unraisablehook
+
+    def hook(unraisable: Any) -> None:
+        owner = getattr(getattr(unraisable, "object", None), "__module__", "") or ""
+        qual = getattr(getattr(unraisable, "object", None), "__qualname__", "") or ""
+        if owner.startswith(("h5netcdf", "h5py")) or qual.startswith("File."):
+            return
+        previous(unraisable)
+
+    sys.unraisablehook = hook
+    try:
+        yield
+    finally:
+        gc.collect()
+        sys.unraisablehook = previous
+
+
 def _open_container(path: Path, engine: str, *, chunks: Mapping[str, int] | None, lazy: bool | None) -> tuple:
     kwargs: dict[str, Any] = {"engine": engine, "decode_timedelta": False}
     if engine == "zarr":
@@ -334,13 +362,17 @@ def _open_container(path: Path, engine: str, *, chunks: Mapping[str, int] | None
     else:
         kwargs["phony_dims"] = "access"
     what = "Zarr store" if engine == "zarr" else "NetCDF-4/HDF5 file"
-    try:
-        peek = xr.open_dataset(path, chunks=None, **kwargs)
-    except Exception as exc:
+    failure = None
+    with _quiet_half_open_files():
+        try:
+            peek = xr.open_dataset(path, chunks=None, **kwargs)
+        except Exception as exc:  # the exception and its frames are dropped inside the quiet block
+            failure = _reason(exc)
+    if failure is not None:
         raise FileFormatError(
-            f"could not open {path} as a {what} ({_reason(exc)}); the file may be truncated or damaged, "
+            f"could not open {path} as a {what} ({failure}); the file may be truncated or damaged, "
             "or not be a scan grid"
-        ) from None
+        )
     with peek:
         phony = [d for d in peek.dims if str(d).startswith("phony_dim")]
         if phony:

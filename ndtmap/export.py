@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import re
 import shutil
 import threading
 import warnings
@@ -20,7 +21,15 @@ from typing import Any
 
 from .errors import FileFormatError
 
-__all__ = ["STATIC_FORMATS", "write_figure", "write_plotly_js", "export_session", "find_chromium", "figure_bytes"]
+__all__ = [
+    "STATIC_FORMATS",
+    "write_figure",
+    "write_plotly_js",
+    "export_session",
+    "find_chromium",
+    "figure_bytes",
+    "stable_svg",
+]
 
 STATIC_FORMATS = ("png", "svg", "pdf")
 #: Default size of static figures in CSS pixels, and the PNG scale (3 -> print resolution).
@@ -117,9 +126,33 @@ def figure_bytes(
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # plotly warns that kaleido options are ignored in a server
-            return fig.to_image(format=fmt, width=int(w), height=int(h), scale=s)
+            data = fig.to_image(format=fmt, width=int(w), height=int(h), scale=s)
     except Exception as exc:  # noqa: BLE001 - kaleido raises many kinds; report one clear line
         raise FileFormatError(f"static export to {fmt.upper()} failed: {type(exc).__name__}: {exc}") from None
+    return stable_svg(data) if fmt == "svg" else data
+
+
+_SVG_PLOT_UID = re.compile(rb'id="defs-([0-9a-f]{6})"')
+
+
+def stable_svg(data: bytes) -> bytes:
+    """Replace the random id plotly.js gives every plot in an SVG by a fixed one.
+
+    plotly.js names the clip paths and gradients of a plot after a random
+    six-digit hex id, so two exports of the same figure differ; with the id
+    fixed (and trace ``uid`` set, as :mod:`ndtmap.figures` does) the same
+    figure gives the same bytes.
+
+    Examples
+    --------
+    >>> stable_svg(b'<defs id="defs-3fa9c1"/><g clip-path="url(#clip3fa9c1xy)"/>')
+    b'<defs id="defs-000000"/><g clip-path="url(#clip000000xy)"/>'
+    """
+    found = _SVG_PLOT_UID.search(data)
+    if not found:
+        return data
+    uid = re.escape(found.group(1))
+    return re.sub(rb"(?<=[A-Za-z#-])" + uid, b"000000", data)
 
 
 def write_figure(

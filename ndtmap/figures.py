@@ -478,6 +478,41 @@ def _scale_bar(fig: Any, xe: np.ndarray) -> None:
                        text=f"{length:g} mm ", showarrow=False, font=dict(size=12))
 
 
+def _place_labels(
+    labels: Sequence[tuple[list[str], tuple[float, float, float, float]]], xe: np.ndarray, ye: np.ndarray
+) -> list[tuple[float, float, str, str]]:
+    """Anchor points of indication labels: above or below each outline, not over another label.
+
+    Sizes are estimated for the default export size (about 700 x 470 px of plot area at equal aspect).
+    """
+    xspan, yspan = float(xe[-1] - xe[0]), float(ye[-1] - ye[0])
+    px = min(700.0 / max(xspan, 1e-9), 470.0 / max(yspan, 1e-9))  # pixels per mm
+    placed: list[tuple[float, float, float, float]] = []
+    out = []
+    for lines, (x0, x1, y0, y1) in labels:
+        w = (max(len(re.sub(r"<[^>]+>|&[a-z]+;", "x", t)) for t in lines) * 6.2 + 6) / px
+        h = (13.0 * len(lines) + 4) / px
+        right = 0.5 * (x0 + x1) > 0.5 * (xe[0] + xe[-1])
+        cands = []
+        for above in (True, False):
+            for align_right in (right, not right):
+                ax = x1 if align_right else x0
+                bx = (ax - w, ax) if align_right else (ax, ax + w)
+                by = (y1, y1 + h) if above else (y0 - h, y0)
+                cands.append((ax, y1 if above else y0, "right" if align_right else "left",
+                              "bottom" if above else "top", (bx[0], bx[1], by[0], by[1])))
+
+        def clear(b: tuple[float, float, float, float], margin: float) -> bool:
+            inside = (b[0] >= xe[0] - 1e-9 and b[1] <= xe[-1] + 1e-9 and b[2] >= ye[0] - margin
+                      and b[3] <= ye[-1] + margin)
+            return inside and all(b[1] <= p[0] or b[0] >= p[1] or b[3] <= p[2] or b[2] >= p[3] for p in placed)
+
+        pick = next((c for c in cands if clear(c[4], h)), cands[0])
+        placed.append(pick[4])
+        out.append(pick[:4])
+    return out
+
+
 def map_figure(
     map_da: xr.DataArray,
     *,
@@ -528,8 +563,8 @@ def map_figure(
     >>> m = xr.DataArray(np.ones((3, 2)), dims=("scan", "index"), coords={"scan": [0.0, 1, 3], "index": [0.0, 2]},
     ...                  attrs={"units": "%FSH", "long_name": "gate peak amplitude"})
     >>> fig = map_figure(m)
-    >>> list(fig.data[0].x), fig.data[0].colorbar.title.text, fig.layout.yaxis.scaleanchor
-    [0.0, 1.0, 3.0], 'gate peak amplitude [%FSH]', 'x')
+    >>> fig.data[0].x.tolist(), fig.data[0].colorbar.title.text, fig.layout.yaxis.scaleanchor
+    ([0.0, 1.0, 3.0], 'gate peak amplitude [%FSH]', 'x')
     """
     import plotly.graph_objects as go
 
@@ -549,6 +584,7 @@ def map_figure(
     color = _OUTLINE_LINE
     scan, index = mg.coords_mm(m)
     shown: set[str] = set()
+    labels: list[tuple[list[str], tuple[float, float, float, float]]] = []
     for rec in recs:
         region, what, pk = _indication_region(om, rec)
         flags = list(rec.get("flags") or [])
@@ -573,13 +609,10 @@ def map_figure(
                 text=hover, hoveron="points", connectgaps=False,
             ))
             shown.add(legend)
-            top = max(polys, key=lambda p: p[:, 1].max())
-            label_y = float(top[:, 1].max())
-            right_half = float(scan[pk[0]]) > 0.5 * (xe[0] + xe[-1])
-            label_x = float(top[:, 0].max()) if right_half else float(top[:, 0].min())
+            allp = np.vstack(polys)
+            box = (float(allp[:, 0].min()), float(allp[:, 0].max()), float(allp[:, 1].min()), float(allp[:, 1].max()))
         else:
-            right_half = float(scan[pk[0]]) > 0.5 * (xe[0] + xe[-1])
-            label_x, label_y = float(scan[pk[0]]), float(index[pk[1]])
+            box = (float(scan[pk[0]]),) * 2 + (float(index[pk[1]]),) * 2
         name = "indication peak"
         fig.add_trace(go.Scatter(
             x=[float(scan[pk[0]])], y=[float(index[pk[1]])], mode="markers",
@@ -588,11 +621,12 @@ def map_figure(
         ))
         shown.add(name)
         if show_ids:
-            label = _size_label(rec) + (f" ({_text(', '.join(flags))})" if flagged else "")
-            fig.add_annotation(x=label_x, y=label_y, xref="x", yref="y", text=label,
-                               xanchor="right" if right_half else "left",
-                               yanchor="bottom", bgcolor="rgba(255,255,255,0.8)", borderpad=1,
-                               font=dict(size=10, color=_INK))
+            lines = [_size_label(rec)] + ([_text(", ".join(flags))] if flagged else [])
+            labels.append((lines, box))
+    for lines, (x, y, ax, ay) in zip((lab[0] for lab in labels), _place_labels(labels, xe, ye), strict=True):
+        text = lines[0] + "".join(f"<br><span style='font-size:9px'>{t}</span>" for t in lines[1:])
+        fig.add_annotation(x=x, y=y, xref="x", yref="y", text=text, xanchor=ax, yanchor=ay, align="left",
+                           bgcolor="rgba(255,255,255,0.8)", borderpad=1, font=dict(size=10, color=_INK))
     if scale_bar:
         _scale_bar(fig, xe)
     fig.update_layout(legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.12, yanchor="top"))
@@ -831,6 +865,7 @@ def section_figure(
                       line=dict(color=ACCENTS[1], width=1.5, dash="dot"))
         fig.add_annotation(x=c, y=1.0, xref="x", yref="paper", yanchor="bottom", text=f"A-scan at {c:.1f} mm",
                            font=dict(size=10, color=_INK))
+    fig.update_layout(legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.14, yanchor="top"))
     return _finish(fig, "section", title)
 
 
@@ -1176,7 +1211,7 @@ def dgs_figure(
         lo = min(lo, min(py) - 10.0)
     ticks = [m * 10.0**e for e in range(-2, 5) for m in (1, 2, 5) if z[0] <= m * 10.0**e <= z[-1]]
     fig.update_xaxes(type="log", title_text="sound path [mm]", range=[math.log10(z[0]), math.log10(z[-1]) + 0.08],
-                     tickvals=ticks, ticktext=[f"{t:g}" for t in ticks], minor=dict(showgrid=True, gridcolor=_GRID))
+                     tickvals=ticks, ticktext=[f"{t:g}" for t in ticks])
     fig.update_yaxes(title_text="echo re plane reflector at zero distance [dB]", range=[max(lo, -100.0), 3.0])
     fig.update_layout(legend=dict(x=0.01, xanchor="left", y=0.01, yanchor="bottom"))
     return _finish(fig, "dgs", title)

@@ -338,14 +338,14 @@ class _Writer:
 
 def _check_output(out: Path, paths: Sequence[Path]) -> None:
     o = out.resolve()
-    if out.exists() and not out.is_dir():
-        raise ParameterError(f"`output_dir` `{out}` exists and is a file; give a folder")
     for p in paths:
         r = p.resolve()
         if o == r or (r.is_dir() and _inside(o, r) and (r / "zarr.json").exists()):
             raise ParameterError(
                 f"`output_dir` `{out}` is one of the input paths; write the report into a new folder"
             )
+    if out.exists() and not out.is_dir():
+        raise ParameterError(f"`output_dir` `{out}` exists and is a file; give a folder")
 
 
 def _sha256(path: Path) -> str | None:
@@ -607,7 +607,7 @@ details { margin: 4px 0; } summary { cursor: pointer; color: var(--accent); }
 .flag { display: inline-block; border: 1px solid var(--warn); color: var(--warn); border-radius: 3px;
         padding: 0 4px; margin: 1px 2px 1px 0; font-size: 12px; }
 footer { color: var(--muted); border-top: 1px solid var(--line); margin-top: 40px; padding-top: 8px; font-size: 12px; }
-@media print { body { font-size: 11px; } figure .plot { display: none; } figure .print { display: block; }
+@media print { body { font-size: 11px; } figure.has-print .plot { display: none; } figure .print { display: block; }
                a { color: inherit; text-decoration: none; } main, header.top { max-width: none; } }
 @media screen { figure .print { display: none; } }
 """
@@ -743,6 +743,20 @@ def _provenance_html(grid_record: list[dict[str, Any]], maps: Mapping[str, list[
     return "".join(out)
 
 
+def _threshold_text(analysis: Any) -> str:
+    """The detection level in words, with its value in %FSH when it is given in dB."""
+    proc = analysis.procedure
+    if proc.threshold_fsh is not None:
+        return f"{proc.threshold_fsh:g} %FSH"
+    if proc.reference == "backwall":
+        ref = float(np.nanmedian(np.asarray(analysis.maps["backwall_amplitude"].values, dtype=np.float64)))
+        what = f"the median back-wall echo, {ref:.2f} %FSH"
+    else:
+        ref = float(proc.reference)
+        what = f"{ref:g} %FSH"
+    return f"{proc.threshold_db:g} dB re {what} (= {ref * 10.0 ** (proc.threshold_db / 20.0):.2f} %FSH)"
+
+
 def _settings_html(analysis: Any) -> str:
     from .grid import grid_attr
 
@@ -761,8 +775,7 @@ def _settings_html(analysis: Any) -> str:
           e(g.follows or "-")] for g in proc.gates],
         [False, True, True, False, True, False, False],
     )
-    thr = (f"{proc.threshold_fsh:g} %FSH" if proc.threshold_fsh is not None
-           else f"{proc.threshold_db:g} dB re {proc.reference}")
+    thr = _threshold_text(analysis)
     det = [
         ("procedure", proc.name + (" (first look, derived from the grid)" if proc.first_look else "")),
         ("description", proc.description or "-"),
@@ -818,8 +831,9 @@ def _figure_html(k: int, ff: FigureFile, fig: Any, embed: bool) -> str:
     if "png" in ff.files:
         body += f"<img class=\"print\" src=\"figures/{e(ff.files['png'].name)}\" alt=\"{e(ff.title)}\">"
     files = f"<span class=\"files\">Files: {links}</span>" if links else "<span class=\"muted\">no static files</span>"
-    return (f"<figure id=\"fig-{e(ff.kind)}\">{body}<figcaption><strong>Figure {k}.</strong> {e(ff.caption)} "
-            f"{files}</figcaption></figure>")
+    printable = " class=\"has-print\"" if "png" in ff.files else ""
+    return (f"<figure id=\"fig-{e(ff.kind)}\"{printable}>{body}<figcaption><strong>Figure {k}.</strong> "
+            f"{e(ff.caption)} {files}</figcaption></figure>")
 
 
 def _part_page(ctx: dict[str, Any]) -> str:
@@ -865,8 +879,7 @@ def _part_page(ctx: dict[str, Any]) -> str:
     body.append("<section id=\"figures\"><h2>Figures</h2>" + "".join(fig_html)
                 + (f"<ul class=\"muted\">{skipped}</ul>" if skipped else "") + "</section>")
     table, legend = _indication_rows(recs)
-    thr = (f"{proc.threshold_fsh:g} %FSH" if proc.threshold_fsh is not None
-           else f"{proc.threshold_db:g} dB re {proc.reference}")
+    thr = _threshold_text(analysis)
     det = proc.gate(proc.detection_gate)
     body.append(
         "<section id=\"indications\"><h2>Indications</h2>"

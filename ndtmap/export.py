@@ -10,6 +10,7 @@ single browser running. Every file is written atomically.
 from __future__ import annotations
 
 import contextlib
+import datetime as _dt
 import os
 import re
 import shutil
@@ -29,6 +30,7 @@ __all__ = [
     "find_chromium",
     "figure_bytes",
     "stable_svg",
+    "stable_pdf",
 ]
 
 STATIC_FORMATS = ("png", "svg", "pdf")
@@ -129,7 +131,9 @@ def figure_bytes(
             data = fig.to_image(format=fmt, width=int(w), height=int(h), scale=s)
     except Exception as exc:  # noqa: BLE001 - kaleido raises many kinds; report one clear line
         raise FileFormatError(f"static export to {fmt.upper()} failed: {type(exc).__name__}: {exc}") from None
-    return stable_svg(data) if fmt == "svg" else data
+    if fmt == "svg":
+        return stable_svg(data)
+    return stable_pdf(data) if fmt == "pdf" else data
 
 
 _SVG_PLOT_UID = re.compile(rb'id="defs-([0-9a-f]{6})"')
@@ -207,3 +211,33 @@ def write_plotly_js(folder: str | os.PathLike[str]) -> Path:
     from .io import atomic_write_text
 
     return atomic_write_text(Path(folder) / "plotly.min.js", get_plotlyjs())
+
+
+_PDF_DATE = re.compile(rb"/(CreationDate|ModDate) \(D:\d{14}[^)]{0,12}\)")
+
+
+def stable_pdf(data: bytes) -> bytes:
+    """Fix the creation and modification dates the browser writes into a PDF.
+
+    The dates become ``SOURCE_DATE_EPOCH`` (the reproducible-builds
+    convention) when that variable is set, else 1970-01-01 00:00 UTC, so the
+    same figure gives the same bytes; the value keeps its length, so the
+    byte offsets of the file stay valid.
+
+    Examples
+    --------
+    >>> stable_pdf(b"<< /CreationDate (D:20261201214222+00'00') >>")
+    b"<< /CreationDate (D:19700101000000+00'00') >>"
+    """
+    try:
+        epoch = int(os.environ.get("SOURCE_DATE_EPOCH", "0"))
+    except ValueError:
+        epoch = 0
+    stamp = _dt.datetime.fromtimestamp(epoch, _dt.UTC).strftime("%Y%m%d%H%M%S").encode()
+
+    def fix(m: re.Match[bytes]) -> bytes:
+        old = m.group(0)
+        new = b"/" + m.group(1) + b" (D:" + stamp + b"+00'00')"
+        return new if len(new) == len(old) else old
+
+    return _PDF_DATE.sub(fix, data)

@@ -353,6 +353,8 @@ def test_static_export_is_byte_identical_and_well_formed(export):
     assert svg[0] == again
     assert figure_bytes(figs[1], "png", width=700, height=500, scale=2) == png[1]
     assert png_size(png[0]) == (1400, 1000)
+    pdf = [figure_bytes(figs[1], "pdf", width=700, height=500) for _ in range(2)]
+    assert pdf[0] == pdf[1] and pdf[0].startswith(b"%PDF-")  # ISO 32000-1, 7.5.2: the header
     root = ET.fromstring(svg[0])
     assert root.tag.endswith("svg") and root.get("width") == "700"
     assert not [el for el in root.iter() if el.tag.split("}")[-1] == "script"]

@@ -386,3 +386,20 @@ def test_forging_procedure_finds_the_small_reflectors_and_sizes_them_by_dgs():
     # the recording level is some 10 dB above the noise (median amplitude outside indications ~1 %FSH)
     amp = a.maps["amplitude"].values
     assert np.median(amp) < 1.5 and a.procedure.threshold_db == pytest.approx(-28.2)
+
+
+def test_a_folder_gives_every_grid_file_in_it(tmp_path):
+    from ndtmap.io import export_raw
+    from ndtmap.report import grid_files
+
+    g = open_grid(sample_path("corroded_wall.nc"))
+    save_grid(g, tmp_path / "wall.zarr")
+    export_raw(g, tmp_path / "wall_raw.json")
+    (tmp_path / "other.json").write_text('{"a": 1}')  # not a raw sidecar
+    (tmp_path / "sub").mkdir()
+    shutil.copy(sample_path("forging_block.nc"), tmp_path / "sub" / "deeper.nc")  # sub-folders are not searched
+    assert [p.name for p in grid_files(tmp_path)] == ["wall.zarr", "wall_raw.json"]
+    r = write_report(tmp_path, tmp_path / "sub" / "out", figures=["amplitude"], formats=())
+    assert [p.folder.name for p in r.parts] == ["KFP-PW-1180", "KFP-PW-1180-2"]  # a repeated part id
+    a, b = (json.loads((p.folder / "indications.json").read_text())["indications"] for p in r.parts)
+    assert a == b  # the same grid through both containers

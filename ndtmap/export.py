@@ -10,7 +10,9 @@ single browser running. Every file is written atomically.
 from __future__ import annotations
 
 import contextlib
+import datetime as _dt
 import os
+import re
 import shutil
 import threading
 import warnings
@@ -20,7 +22,16 @@ from typing import Any
 
 from .errors import FileFormatError
 
-__all__ = ["STATIC_FORMATS", "write_figure", "write_plotly_js", "export_session", "find_chromium", "figure_bytes"]
+__all__ = [
+    "STATIC_FORMATS",
+    "write_figure",
+    "write_plotly_js",
+    "export_session",
+    "find_chromium",
+    "figure_bytes",
+    "stable_svg",
+    "stable_pdf",
+]
 
 STATIC_FORMATS = ("png", "svg", "pdf")
 #: Default size of static figures in CSS pixels, and the PNG scale (3 -> print resolution).
@@ -117,9 +128,35 @@ def figure_bytes(
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # plotly warns that kaleido options are ignored in a server
-            return fig.to_image(format=fmt, width=int(w), height=int(h), scale=s)
+            data = fig.to_image(format=fmt, width=int(w), height=int(h), scale=s)
     except Exception as exc:  # noqa: BLE001 - kaleido raises many kinds; report one clear line
         raise FileFormatError(f"static export to {fmt.upper()} failed: {type(exc).__name__}: {exc}") from None
+    if fmt == "svg":
+        return stable_svg(data)
+    return stable_pdf(data) if fmt == "pdf" else data
+
+
+_SVG_PLOT_UID = re.compile(rb'id="defs-([0-9a-f]{6})"')
+
+
+def stable_svg(data: bytes) -> bytes:
+    """Replace the random id plotly.js gives every plot in an SVG by a fixed one.
+
+    plotly.js names the clip paths and gradients of a plot after a random
+    six-digit hex id, so two exports of the same figure differ; with the id
+    fixed (and trace ``uid`` set, as :mod:`ndtmap.figures` does) the same
+    figure gives the same bytes.
+
+    Examples
+    --------
+    >>> stable_svg(b'<defs id="defs-3fa9c1"/><g clip-path="url(#clip3fa9c1xy)"/>')
+    b'<defs id="defs-000000"/><g clip-path="url(#clip000000xy)"/>'
+    """
+    found = _SVG_PLOT_UID.search(data)
+    if not found:
+        return data
+    uid = re.escape(found.group(1))
+    return re.sub(rb"(?<=[A-Za-z#-])" + uid, b"000000", data)
 
 
 def write_figure(
@@ -174,3 +211,33 @@ def write_plotly_js(folder: str | os.PathLike[str]) -> Path:
     from .io import atomic_write_text
 
     return atomic_write_text(Path(folder) / "plotly.min.js", get_plotlyjs())
+
+
+_PDF_DATE = re.compile(rb"/(CreationDate|ModDate) \(D:\d{14}[^)]{0,12}\)")
+
+
+def stable_pdf(data: bytes) -> bytes:
+    """Fix the creation and modification dates the browser writes into a PDF.
+
+    The dates become ``SOURCE_DATE_EPOCH`` (the reproducible-builds
+    convention) when that variable is set, else 1970-01-01 00:00 UTC, so the
+    same figure gives the same bytes; the value keeps its length, so the
+    byte offsets of the file stay valid.
+
+    Examples
+    --------
+    >>> stable_pdf(b"<< /CreationDate (D:20261201214222+00'00') >>")
+    b"<< /CreationDate (D:19700101000000+00'00') >>"
+    """
+    try:
+        epoch = int(os.environ.get("SOURCE_DATE_EPOCH", "0"))
+    except ValueError:
+        epoch = 0
+    stamp = _dt.datetime.fromtimestamp(epoch, _dt.UTC).strftime("%Y%m%d%H%M%S").encode()
+
+    def fix(m: re.Match[bytes]) -> bytes:
+        old = m.group(0)
+        new = b"/" + m.group(1) + b" (D:" + stamp + b"+00'00')"
+        return new if len(new) == len(old) else old
+
+    return _PDF_DATE.sub(fix, data)

@@ -388,6 +388,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--chunk-scan", type=int, metavar="N", help="open lazily with N scan lines per chunk")
     p.set_defaults(func=cmd_indications)
 
+    from .report_cli import register as register_report
+
+    register_report(sub)
     for register in _EXTRA_COMMANDS:
         register(sub)
     return parser
@@ -425,16 +428,6 @@ def main(argv: Sequence[str] | None = None) -> int:
             file=sys.stderr,
         )
         return EXIT_INTERNAL
-
-# The ``report`` command lives in its own module; registering it here (guarded, so a broken or
-# missing module never stops the other commands) can move into the integration of _EXTRA_COMMANDS.
-try:
-    from .report_cli import register as _register_report
-except ImportError:  # pragma: no cover
-    _register_report = None
-if _register_report is not None and _register_report not in _EXTRA_COMMANDS:
-    _EXTRA_COMMANDS.append(_register_report)
-
 
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())

@@ -172,8 +172,8 @@ def run_demo(
 
         result = write_report([path], output / "report", procedure=procedure)
         echo(f"\nreport bundle: {result.index_html}")
-        for w in getattr(result, "warnings", []) or []:
-            echo(f"  note: {w}")
+        for note in result.notes:
+            echo(f"  note: {note}")
     echo(f"\nall results in {output.resolve()}")
     echo(f"\ncaution: {CAUTION}")
     return 0

@@ -383,6 +383,7 @@ def _amplitude_record(
     rec["sizing_method"] = "6 dB drop"
     notes = rec["notes"]
     lengths = {}
+    w6 = None
     for axis in ("scan", "index"):
         r = drop_length(amp, ind, drop_db=6.0, axis=axis, edge=edge)
         lengths[axis] = r
@@ -460,8 +461,19 @@ def _amplitude_record(
                 "prefer the 6 dB drop"
             )
 
-    # DGS
-    if bw_ref is not None and z is not None:
+    # DGS: an equivalent flat-bottom-hole size describes reflectors smaller than the beam; for one much
+    # larger than the beam (both 6 dB lengths above twice the -6 dB beam width) it would understate the
+    # reflector, so none is given (the drop sizes are the measurement then).
+    larger_than_beam = w6 is not None and all(
+        lengths[ax].length_mm is not None and lengths[ax].length_mm > 2.0 * w6 for ax in ("scan", "index")
+    )
+    if bw_ref is not None and z is not None and larger_than_beam:
+        rec["ers_method"] = "not applicable"
+        notes.append(
+            f"no DGS equivalent size: the reflector is much larger than the beam (6 dB lengths above twice the "
+            f"-6 dB beam width, {w6:.1f} mm); the 6 dB drop sizes describe it"
+        )
+    elif bw_ref is not None and z is not None:
         if dgs_problem is not None:
             notes.append(dgs_problem)
         elif probe is None:
@@ -523,7 +535,7 @@ def _loss_record(loss_map: xr.DataArray, ind: Indication, *, level: float, edge:
         r = level_length(loss_map, ind, level_fsh=level, axis=axis, edge=edge)
         rec[f"length_{axis}_mm"] = _opt(r.length_mm)
         rec[f"length_{axis}_uncertainty_mm"] = _opt(r.uncertainty_mm)
-        notes.extend(n.replace("fixed level", "back-wall loss") for n in r.notes)
+        notes.extend(n.replace("fixed level", "back-wall loss").replace(" %FSH", " dB") for n in r.notes)
         if r.lower_bound:
             _add_flag(rec, "at_scan_edge")
         if r.data_gap:

@@ -20,8 +20,8 @@ import tracemalloc
 from pathlib import Path
 
 import pytest
-
 from fuzz_corpus import all_cases
+
 from ndtmap.cli import main
 
 CASES = all_cases()

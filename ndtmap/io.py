@@ -329,30 +329,36 @@ def _finish(ds: xr.Dataset, path: Path, *, lazy: bool, validate: bool, data_file
     return ds
 
 
-@contextmanager
-def _quiet_half_open_files() -> Iterator[None]:
-    """Collect file objects a failed open left half-built, without their clean-up errors reaching stderr.
+def _open_dataset_quietly(path: Path, **kwargs: Any) -> tuple[xr.Dataset | None, str | None]:
+    """``xr.open_dataset`` that returns (dataset, None) or (None, reason) instead of raising.
 
     When h5netcdf fails to open a damaged file, the half-constructed file object raises from its
     destructor later ("Exception ignored in ... File.close"), which would print a traceback into the
-    user's terminal. The garbage is collected here, inside the failed open, with those clean-up
-    errors of h5netcdf/h5py objects silenced; any other unraisable exception passes through.
+    user's terminal. After a failure the garbage is collected here, with those clean-up errors of
+    h5netcdf/h5py objects silenced; any other unraisable exception passes through.
     """
     previous = sys.unraisablehook
 
     def hook(unraisable: Any) -> None:
-        owner = getattr(getattr(unraisable, "object", None), "__module__", "") or ""
-        qual = getattr(getattr(unraisable, "object", None), "__qualname__", "") or ""
+        obj = getattr(unraisable, "object", None)
+        owner = getattr(obj, "__module__", "") or ""
+        qual = getattr(obj, "__qualname__", "") or ""
         if owner.startswith(("h5netcdf", "h5py")) or qual.startswith("File."):
             return
         previous(unraisable)
 
+    # the hook must be in place before the failure: the half-built object may be freed as soon as the
+    # exception is dropped, or only by the collector
     sys.unraisablehook = hook
     try:
-        yield
-    finally:
+        try:
+            return xr.open_dataset(path, **kwargs), None
+        except Exception as exc:  # noqa: BLE001 - every reader failure becomes one reason string
+            reason = _reason(exc)
         gc.collect()
+    finally:
         sys.unraisablehook = previous
+    return None, reason
 
 
 def _open_container(path: Path, engine: str, *, chunks: Mapping[str, int] | None, lazy: bool | None) -> tuple:
@@ -362,13 +368,8 @@ def _open_container(path: Path, engine: str, *, chunks: Mapping[str, int] | None
     else:
         kwargs["phony_dims"] = "access"
     what = "Zarr store" if engine == "zarr" else "NetCDF-4/HDF5 file"
-    failure = None
-    with _quiet_half_open_files():
-        try:
-            peek = xr.open_dataset(path, chunks=None, **kwargs)
-        except Exception as exc:  # the exception and its frames are dropped inside the quiet block
-            failure = _reason(exc)
-    if failure is not None:
+    peek, failure = _open_dataset_quietly(path, chunks=None, **kwargs)
+    if peek is None:
         raise FileFormatError(
             f"could not open {path} as a {what} ({failure}); the file may be truncated or damaged, "
             "or not be a scan grid"

@@ -66,7 +66,7 @@ def _catch_unraisable(found: list[str]):
     sys.unraisablehook = lambda u: found.append(f"{u.exc_type.__name__}: {u.exc_value} in {u.object!r}")
     try:
         yield
-        gc.collect()
+        gc.collect(1)  # the young generations: where a command's own garbage is (a full collection is slow)
     finally:
         sys.unraisablehook = previous
 

@@ -56,6 +56,12 @@ def jupyterlab_server(root_dir: Path, scratch: Path) -> Iterator[tuple[str, str]
         path = scratch / name.lower()
         path.mkdir(parents=True, exist_ok=True)
         env[name] = str(path)
+    # no "fetch the Jupyter news?" question and no update check (the command-line switches do not silence the
+    # question in JupyterLab 4)
+    settings = scratch / "jupyterlab_settings_dir" / "@jupyterlab" / "apputils-extension"
+    settings.mkdir(parents=True, exist_ok=True)
+    (settings / "notification.jupyterlab-settings").write_text(
+        '{"fetchNews": "false", "checkForUpdates": false}', encoding="utf-8")
     # the kernel must find the same Python (and ndtmap) as the test run
     env["JUPYTER_PATH"] = str(Path(sys.prefix) / "share" / "jupyter")
     env["PYTHONPATH"] = os.pathsep.join([str(Path(__file__).resolve().parents[1]), env.get("PYTHONPATH", "")])

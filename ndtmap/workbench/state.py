@@ -972,7 +972,8 @@ def indication_details(rec: Mapping[str, Any]) -> list[tuple[str, str]]:
                  mm(rec.get("length_index_mm"), rec.get("length_index_uncertainty_mm"))))
     if rec.get("area_mm2") is not None:
         unc = rec.get("area_uncertainty_mm2")
-        rows.append(("area", f"{rec['area_mm2']:.0f}" + (f" \u00b1 {unc:.0f}" if unc is not None else "") + " mm\u00b2"))
+        pm = f" \u00b1 {unc:.0f}" if unc is not None else ""
+        rows.append(("area", f"{rec['area_mm2']:.0f}{pm} mm\u00b2"))
     if rec.get("ers_mm") is not None:
         rows.append(("DGS equivalent size", f"{rec['ers_mm']:.1f} mm ({rec.get('ers_method') or 'DGS'})"))
     for f in rec.get("flags") or []:

@@ -39,7 +39,7 @@ import xarray as xr
 
 from .._gridops import is_lazy
 from ..errors import NdtmapError, ParameterTypeError
-from ..gates import GATE_MODES, GATE_UNITS
+from ..gates import GATE_MODES
 from . import plots
 from ._tasks import TaskRunner
 from .state import MAP_KINDS, WorkbenchState, indication_details, indication_label

@@ -273,12 +273,21 @@ def test_indication_list_is_run_procedure_and_picking_centres_the_views(state, p
         state.pick_indication(999)
 
 
-def test_threshold_edit_changes_the_indication_list(state):
-    n = len(state.indications())
-    state.set_gate("flaw", threshold_fsh=78.0)  # above all but the strongest peaks (79-80 %FSH)
-    fewer = [r for r in state.indications() if r["kind"] == "amplitude"]
-    assert 0 < len(fewer) < n
-    assert all(r["peak_fsh"] >= 78.0 for r in fewer)
+def test_threshold_edit_changes_the_indication_list(state, plate):
+    from dataclasses import replace
+
+    from ndtmap.procedure import first_look_procedure
+
+    before = state.indications()
+    state.set_gate("flaw", threshold_fsh=78.0)  # near the peaks of the laminations (73-80 %FSH)
+    after = state.indications()
+    assert after != before
+    assert all(r["peak_fsh"] >= 78.0 for r in after if r["kind"] == "amplitude")
+    # the same list as the first-look procedure with its detection level moved to 78 %FSH
+    base = first_look_procedure(plate)
+    gates = tuple(replace(g, threshold_fsh=78.0) if g.name == "flaw" else g for g in base.gates)
+    ref = run_procedure(plate, replace(base, gates=gates, threshold_fsh=78.0)).indications
+    assert json.dumps(after) == json.dumps(ref)
     assert state.procedure().threshold_fsh == 78.0
 
 

@@ -230,11 +230,12 @@ class WorkbenchState:
     Examples
     --------
     >>> from ndtmap._examples import example_grid
-    >>> st = WorkbenchState(example_grid((4.0,), (60.0,)))
-    >>> st.set_gate("gate A", start=10.0, end=14.0)
-    Gate(name='gate A', start=10.0, end=14.0, unit='mm', threshold_fsh=20.0, mode='peak', follows=None)
-    >>> round(float(st.map().max()), 1)
-    60.0
+    >>> st = WorkbenchState(example_grid((4.0,), (60.0,)))   # a back-wall echo at 11.84 mm
+    >>> st.gate_names
+    ('flaw', 'backwall')
+    >>> st.set_active_gate("backwall")
+    >>> round(float(st.map().max()), 1), round(float(st.map("thickness")[0, 0]), 2)
+    (60.0, 11.84)
     """
 
     def __init__(self, grid: xr.Dataset, *, procedure: Procedure | str | os.PathLike[str] | None = None,

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import contextlib
 import math
+import uuid
 from collections.abc import Callable, Iterator, Mapping
 from typing import Any
 
@@ -126,7 +127,8 @@ def in_slabs(grid: xr.Dataset) -> xr.Dataset:
     if total < PARALLEL_MIN_SAMPLES or n_scan < 2:
         return grid
     per = max(1, int(SLAB_SAMPLES // max(1, n_index * n_time)))
-    return grid.chunk({"scan": per, "index": -1, "time": -1})
+    # a fresh token: dask would otherwise hash all the samples to name the array
+    return grid.chunk({"scan": per, "index": -1, "time": -1}, token=uuid.uuid4().hex)
 
 
 @contextlib.contextmanager

@@ -50,6 +50,7 @@ __all__ = ["Workbench", "open_workbench", "BACKGROUND_MIN_SAMPLES"]
 BACKGROUND_MIN_SAMPLES = 20_000_000
 
 PLAN_WIDTH = 500
+_NOTE = "<div style='font-size:11px;line-height:1.35;color:#444'>"
 SIDE_WIDTH = 480
 
 _KIND_LABELS = (("peak amplitude", "amplitude"), ("event depth", "depth"), ("wall thickness", "thickness"),
@@ -244,15 +245,15 @@ class Workbench:
 
         # tool bar of the plan view
         c["map_kind"] = W.Dropdown(options=_KIND_LABELS, value=st.map_kind, description="map",
-                                   style={"description_width": "32px"}, layout=W.Layout(width="185px"))
+                                   style={"description_width": "32px"}, layout=W.Layout(width="170px"))
         c["gate"] = W.Dropdown(options=names, value=st.active_gate, description="gate",
-                               style={"description_width": "32px"}, layout=W.Layout(width="150px"))
+                               style={"description_width": "32px"}, layout=W.Layout(width="140px"))
         c["tool"] = W.ToggleButtons(options=[("inspect", "inspect"), ("measure", "measure")], value=st.tool,
                                     tooltips=["a click selects the A-scan and the sections",
                                               "two clicks draw a line to measure the drop length along"],
-                                    style={"button_width": "78px"})
-        c["whole_map"] = W.Button(description="whole map", tooltip="show the whole scanned area",
-                                  layout=W.Layout(width="100px"))
+                                    style={"button_width": "80px"})
+        c["whole_map"] = W.Button(description="all", tooltip="show the whole scanned area",
+                                  layout=W.Layout(width="44px"))
         toolbar = W.HBox([c["map_kind"], c["gate"], c["tool"], c["whole_map"]],
                          layout=W.Layout(flex_flow="row wrap", align_items="center"))
 
@@ -272,14 +273,14 @@ class Workbench:
                                style={"description_width": "40px"}, layout=W.Layout(width="120px"))
         c["threshold"] = W.FloatSlider(min=0.0, max=max(100.0, full), step=0.5, description="threshold",
                                        continuous_update=False, readout_format=".1f",
-                                       style={"description_width": "60px"}, layout=W.Layout(width="360px"))
+                                       style={"description_width": "70px"}, layout=W.Layout(width="370px"))
         c["mode"] = W.Dropdown(options=list(GATE_MODES), description="detection", layout=W.Layout(width="210px"))
         c["follows"] = W.Dropdown(options=[("(none)", "")] + [(n, n) for n in names], description="follows",
                                   layout=W.Layout(width="210px"))
         c["detect"] = W.Dropdown(options=[("rectified", "rectified"), ("envelope (RF)", "envelope")],
                                  value=st.detect, description="signal", layout=W.Layout(width="210px"))
-        c["show_below_threshold"] = W.Checkbox(value=st.show_below_threshold, description="show positions below "
-                                               "the threshold", indent=False, layout=W.Layout(width="250px"))
+        c["show_below_threshold"] = W.Checkbox(value=st.show_below_threshold, description="show below threshold",
+                                               indent=False, layout=W.Layout(width="190px"))
         is_rf = st.grid["ascan"].attrs.get("signal", "rf") == "rf"
         c["show_rf"] = W.Checkbox(value=False, disabled=not is_rf, description="RF on the A-scan", indent=False,
                                   layout=W.Layout(width="150px"))
@@ -287,13 +288,13 @@ class Workbench:
         c["add_gate"] = W.Button(description="add gate", tooltip="a new gate with the window of the shown gate",
                                  layout=W.Layout(width="90px"))
         c["remove_gate"] = W.Button(description="remove gate", tooltip="remove the shown gate",
-                                    layout=W.Layout(width="100px"))
+                                    layout=W.Layout(width="112px"))
         for key in ("start", "end", "threshold", "unit", "mode", "follows", "detect"):
             c[key].add_class(f"ndtmap-gate-{key}")
         self.gate_message = W.HTML()
         gates_panel = W.VBox([
-            W.HTML("<small>The shown gate (tool bar). Start and end are depths below the surface in mm, or times on "
-                   "the record in us; for a gate that follows another, after that gate's event.</small>"),
+            W.HTML(_NOTE + "The shown gate (tool bar). Start and end are depths below the surface in mm, or "
+                   "times on the record in us; for a gate that follows another, after that gate's event.</div>"),
             W.HBox([c["start"], c["end"], c["unit"]]),
             W.HBox([c["threshold"], W.HTML("%FSH")]),
             W.HBox([c["mode"], c["follows"]]),
@@ -313,10 +314,10 @@ class Workbench:
         c["clear_measure"] = W.Button(description="clear", layout=W.Layout(width="70px"))
         self.ruler_result = W.HTML()
         ruler_panel = W.VBox([
-            W.HTML("<small>Choose <i>measure</i> in the tool bar and click the two ends of a line across an "
+            W.HTML(_NOTE + "Choose <i>measure</i> in the tool bar and click the two ends of a line across an "
                    "indication on the plan view (or on a section), or type them here. The length is where the "
                    "amplitude along the line has dropped the set number of dB below the indication's peak "
-                   "(6 dB: half the peak).</small>"),
+                   "(6 dB: half the peak).</div>"),
             W.HBox([c["ruler_start_scan"], c["ruler_start_index"]]),
             W.HBox([c["ruler_end_scan"], c["ruler_end_index"]]),
             W.HBox([c["drop_db"], c["measure"], c["clear_measure"]]),
@@ -378,7 +379,7 @@ class Workbench:
             tabs.set_title(k, title)
         self.tabs = tabs
 
-        left = W.VBox([toolbar, self.figures["plan"], tabs], layout=W.Layout(width=f"{PLAN_WIDTH + 20}px"))
+        left = W.VBox([toolbar, self.figures["plan"], tabs], layout=W.Layout(width=f"{PLAN_WIDTH + 45}px"))
         right = W.VBox([self.figures["ascan"], self.figures["bscan"], self.figures["dscan"]],
                        layout=W.Layout(width=f"{SIDE_WIDTH + 10}px"))
         body = W.HBox([left, right], layout=W.Layout(flex_flow="row wrap", align_items="flex-start"))

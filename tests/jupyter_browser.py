@@ -22,7 +22,7 @@ import urllib.request
 from collections.abc import Iterator
 from pathlib import Path
 
-CHROMIUM = os.environ.get("BROWSER_PATH", "/usr/bin/chromium")
+CHROMIUM = os.environ.get("BROWSER_PATH") or shutil.which("chromium") or "/usr/bin/chromium"
 CHROMIUM_ARGS = [
     "--no-sandbox",
     "--disable-gpu",
@@ -36,7 +36,8 @@ CHROMIUM_ARGS = [
 
 
 def chromium_available() -> bool:
-    return Path(CHROMIUM).exists() or shutil.which("chromium") is not None
+    """True when the browser the tests will launch (:data:`CHROMIUM`) exists."""
+    return Path(CHROMIUM).is_file()
 
 
 def _free_port() -> int:

@@ -22,7 +22,7 @@ import urllib.request
 from collections.abc import Iterator
 from pathlib import Path
 
-CHROMIUM = os.environ.get("BROWSER_PATH", "/usr/bin/chromium")
+CHROMIUM = os.environ.get("BROWSER_PATH") or shutil.which("chromium") or "/usr/bin/chromium"
 CHROMIUM_ARGS = [
     "--no-sandbox",
     "--disable-gpu",
@@ -36,7 +36,8 @@ CHROMIUM_ARGS = [
 
 
 def chromium_available() -> bool:
-    return Path(CHROMIUM).exists() or shutil.which("chromium") is not None
+    """True when the browser the tests will launch (:data:`CHROMIUM`) exists."""
+    return Path(CHROMIUM).is_file()
 
 
 def _free_port() -> int:
@@ -56,6 +57,12 @@ def jupyterlab_server(root_dir: Path, scratch: Path) -> Iterator[tuple[str, str]
         path = scratch / name.lower()
         path.mkdir(parents=True, exist_ok=True)
         env[name] = str(path)
+    # no "fetch the Jupyter news?" question and no update check (the command-line switches do not silence the
+    # question in JupyterLab 4)
+    settings = scratch / "jupyterlab_settings_dir" / "@jupyterlab" / "apputils-extension"
+    settings.mkdir(parents=True, exist_ok=True)
+    (settings / "notification.jupyterlab-settings").write_text(
+        '{"fetchNews": "false", "checkForUpdates": false}', encoding="utf-8")
     # the kernel must find the same Python (and ndtmap) as the test run
     env["JUPYTER_PATH"] = str(Path(sys.prefix) / "share" / "jupyter")
     env["PYTHONPATH"] = os.pathsep.join([str(Path(__file__).resolve().parents[1]), env.get("PYTHONPATH", "")])

@@ -105,8 +105,9 @@ state = WorkbenchState(grid, procedure=procedure)
 state.select_point(37.5, 24.0)
 plots.ascan_figure(state.ascan())"""),
     md("""
-Over L1 the back-wall gate still sees an echo near 25 mm: it is L1's **second** echo
-(2 x 12.5 mm), not the back wall. A gate measures whatever echo falls in it.
+Over L1 the back wall is gone from the A-scan: the lamination shadows it. The echo near 22 mm is
+L1's **second** echo (2 x 11 mm: sound bouncing lamination - surface - lamination), not a reflector
+of its own. A gate measures whatever echo falls in it, so gates are placed knowing such echoes.
 
 ## What the file says is there
 """),
@@ -291,7 +292,7 @@ plots.plan_figure(amp)"""),
     md("""
 The strongest thing in the deep gate is not a small reflector: at about 110 mm, right below the
 planar reflector at 55 mm, is its **repeat echo** (sound bouncing reflector - surface - reflector).
-At 3 %FSH its skirt even joins R2's region. Two gates keep them apart: `mid` (80-115 mm) and
+Two gates keep the zones apart: `mid` (80-115 mm) and
 `deep` (115-150 mm); a gate `upper` (10-80 mm) finds the primary echo, so the repeat can be
 recognised as one.
 """),

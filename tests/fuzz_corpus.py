@@ -91,6 +91,8 @@ class Case:
                     "--threshold-fsh", threshold, "-o", str(out / "m.nc")]
         if command == "indications":
             return ["indications", str(path), "--gate-mm", *gate, "--threshold-fsh", threshold, "--format", "json"]
+        if command == "report":
+            return ["report", str(path), "-o", str(out / "report"), "--formats", "--quiet"]
         raise ValueError(command)
 
 
@@ -477,9 +479,18 @@ def random_sidecar_cases(n: int, seed: int = 9712) -> Iterator[Case]:
                    _sidecar(None, payload, raw_text=text))
 
 
+#: Categories on which the report command runs too (a first-look report needs a back wall, which the tiny
+#: grids have at 10 mm); interactive figures only, to keep the run short.
+REPORT_CATEGORIES = {"control", "dims", "coords", "units", "attrs", "data", "data-ok", "numeric", "dtype", "empty",
+                     "vars", "file", "sidecar"}
+
+
 def all_cases() -> list[Case]:
     cases = list(itertools.chain(grid_cases(), file_cases(), sidecar_cases(), gate_cases(),
                                  random_grid_cases(160), random_sidecar_cases(120)))
+    for case in cases:
+        if case.category in REPORT_CATEGORIES and "report" not in case.commands:
+            case.commands = (*case.commands, "report")
     names = [c.name for c in cases]
     assert len(set(names)) == len(names), "case names must be unique"
     return cases

@@ -118,6 +118,10 @@ def test_case_ends_cleanly(case, tmp_path):
             outcome = "result"
             if command == "map":
                 assert (out / "m.nc").exists()
+            if command == "report":
+                assert (out / "report" / "index.html").exists()
+        elif code == 1 and command == "report":
+            outcome = "partial batch"  # the report names the failed input in its summary
         elif code == 1 and command == "info":
             outcome = "problems listed"
             assert '"problems"' in stdout

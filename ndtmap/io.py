@@ -184,7 +184,10 @@ def _dask_chunks(shape: tuple[int, int, int], itemsize: int, storage: tuple[int,
 def _chunk_request(
     chunks: Mapping[str, int] | None, shape: tuple[int, int, int], itemsize: int, storage: tuple[int, int]
 ) -> dict[str, int]:
-    """Merge the user's chunk sizes with the defaults; `time` is always one chunk."""
+    """Merge the user's chunk sizes with the defaults; `time` is always one chunk.
+
+    A requested size that would cut stored chunks is rounded to a whole number of them (at least one).
+    """
     c_scan, c_index = _dask_chunks(shape, itemsize, storage)
     out = {"scan": c_scan, "index": c_index, "time": shape[2]}
     if chunks is None:
@@ -204,7 +207,12 @@ def _chunk_request(
                     "A-scan in one chunk, so only `scan` and `index` can be split"
                 )
             continue
-        out[dim] = n if size == -1 else min(int(size), n)
+        size = n if size == -1 else min(int(size), n)
+        # round to whole stored chunks, so that no stored (compressed) chunk is read by two dask chunks
+        stored = storage[DIMS.index(dim)]
+        if stored > 1 and size % stored and size < n:
+            size = min(n, max(stored, int(round(size / stored)) * stored))
+        out[dim] = size
     return out
 
 

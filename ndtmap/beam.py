@@ -321,6 +321,12 @@ def spectrum_frequencies(
     return freqs, w / w.sum()
 
 
+def _spectrum_average(quantity: Any, frequency_mhz: float, velocity_m_s: float, bandwidth: float) -> np.ndarray:
+    """Average ``quantity(wavelength_mm)`` over the probe spectrum (see :func:`spectrum_frequencies`)."""
+    freqs, weights = spectrum_frequencies(frequency_mhz, bandwidth)
+    return sum(w * quantity(wavelength_mm(velocity_m_s, f)) for f, w in zip(freqs, weights, strict=True))
+
+
 def _lommel(fresnel_s: np.ndarray) -> np.ndarray:
     """|1 - exp(-i 2pi/s) (J0(2pi/s) + i J1(2pi/s))|: the plane-reflector diffraction factor."""
     x = 2.0 * np.pi / fresnel_s
@@ -358,12 +364,7 @@ def backwall_echo_relative(
     """
     a = 0.5 * positive_float("diameter_mm", diameter_mm)
     z = np.maximum(np.asarray(depth_mm, dtype=np.float64), 1e-9)
-    freqs, weights = spectrum_frequencies(frequency_mhz, bandwidth)
-    out = np.zeros_like(z)
-    for f, w in zip(freqs, weights, strict=True):
-        lam = wavelength_mm(velocity_m_s, f)
-        out += w * _lommel(2.0 * z * lam / (a * a))
-    return out
+    return _spectrum_average(lambda lam: _lommel(2.0 * z * lam / (a * a)), frequency_mhz, velocity_m_s, bandwidth)
 
 
 def fbh_echo_relative(
@@ -402,10 +403,7 @@ def fbh_echo_relative(
     d_fbh = positive_float("fbh_diameter_mm", fbh_diameter_mm)
     d = positive_float("diameter_mm", diameter_mm)
     z = np.asarray(depth_mm, dtype=np.float64)
-    freqs, weights = spectrum_frequencies(frequency_mhz, bandwidth)
-    p2 = np.zeros_like(z)
-    for f, w in zip(freqs, weights, strict=True):
-        p2 += w * on_axis_pressure(z, d, wavelength_mm(velocity_m_s, f)) ** 2
+    p2 = _spectrum_average(lambda lam: on_axis_pressure(z, d, lam) ** 2, frequency_mhz, velocity_m_s, bandwidth)
     return p2 * (d_fbh / d) ** 2
 
 

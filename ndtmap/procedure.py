@@ -66,6 +66,7 @@ import xarray as xr
 
 from . import CAUTION
 from ._validate import finite_float, nonnegative_float, one_of, positive_float
+from .echoes import echo_half_length_mm
 from .errors import NdtmapError, ParameterError, ProcedureError
 from .gates import Gate
 from .grid import grid_attr, time_step_us
@@ -490,18 +491,6 @@ def save_procedure(procedure: Procedure, path: str | os.PathLike[str]) -> Path:
 # --------------------------------------------------------------------------
 # The first-look procedure
 # --------------------------------------------------------------------------
-def _pulse_depth_mm(grid: xr.Dataset) -> float:
-    """Depth extent (mm) of about half an echo: the margin kept between gates and the back wall."""
-    f = float(grid_attr(grid, "probe_frequency_mhz"))
-    bw = float(grid_attr(grid, "probe_bandwidth", 0.5))
-    bw = min(max(bw, 0.2), 1.5)
-    sigma_t = 2.0 * math.sqrt(2.0 * math.log(2.0)) / (2.0 * math.pi * bw * f)
-    c = float(grid_attr(grid, "velocity_m_s")) * 1e-3
-    theta = math.radians(float(grid_attr(grid, "beam_angle_deg", 0.0)))
-    # -20 dB half duration of a Gaussian envelope: sqrt(2 ln 10) sigma
-    return 0.5 * c * math.sqrt(2.0 * math.log(10.0)) * sigma_t * math.cos(theta)
-
-
 def _record_depth_mm(grid: xr.Dataset) -> tuple[float, float]:
     t = grid["time"].values
     zero = float(grid_attr(grid, "zero_offset_us", 0.0))
@@ -549,7 +538,7 @@ def first_look_procedure(grid: xr.Dataset) -> Procedure:
 
     theta = float(grid_attr(grid, "beam_angle_deg", 0.0))
     d0, d1 = _record_depth_mm(grid)
-    echo = _pulse_depth_mm(grid)
+    echo = echo_half_length_mm(grid)
     thickness = grid_attr(grid, "part_thickness_mm")
     if not isinstance(thickness, float):
         thickness = _estimate_backwall_depth_mm(grid)

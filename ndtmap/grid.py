@@ -198,6 +198,9 @@ def _check_coord(ds: xr.Dataset, name: str, problems: list[str]) -> None:
         bad = int(np.count_nonzero(~np.isfinite(values)))
         problems.append(f"coordinate `{name}` has {bad} NaN or infinite value(s); every position must be finite")
         return
+    if name == "time" and values.size < 2:
+        problems.append("coordinate `time` has a single sample; an A-scan needs at least two samples")
+        return
     if values.size > 1:
         steps = np.diff(values.astype(np.float64))
         if np.any(steps <= 0):

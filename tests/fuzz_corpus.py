@@ -184,7 +184,7 @@ def grid_cases() -> Iterator[Case]:
             elif kind == "inf":
                 v[0] = -np.inf
             elif kind == "shuffled":
-                v = np.random.default_rng(1).permutation(v)
+                v[[0, 2]] = v[[2, 0]]
             elif kind == "nonuniform":
                 v = v + np.where(np.arange(v.size) % 7 == 3, 0.4 * DT_US, 0.0)
             cc[name] = v

@@ -1,0 +1,506 @@
+"""The compiled gate kernel: every output of a gate in one read of the window (private).
+
+:func:`gate_rows` gives exactly what :func:`ndtmap.gates._gate_kernel` (the
+numpy reference) gives on the detection signal, but works on the recorded
+samples directly: int16 (and other integer) counts are scaled to %FSH one
+sample at a time, RF data are rectified one sample at a time (``abs`` in
+int32, so -32768 cannot overflow), and nothing the size of the window is
+allocated.
+
+How one A-scan is read
+    Samples are compared through an integer *key* that orders them exactly
+    as their %FSH values do: the count itself (``abs`` in int32 for RF) for
+    integer data; for float32 data the IEEE-754 bit pattern (the sign bit
+    cleared for RF, negative values negated for signed data, so that -0.0
+    and +0.0 share a key). Integer maxima vectorise (SIMD); float maxima in
+    IEEE semantics do not. The window is cut into blocks of
+    :data:`BLOCK` samples and the largest key of every block is kept (a
+    few hundred bytes on the stack of the loop). The highest sample, the
+    first sample at or above the threshold and the start of the crossing
+    echo are then found from the block maxima, reading only the one block
+    that holds them again (from the L1 cache, not from memory). Only the
+    crossing echo (from the crossing to ``hold`` samples below the
+    threshold) is walked sample by sample, and blocks that lie entirely
+    above the threshold are skipped by their block minimum.
+
+    A float32 sample is NaN or infinite when its key's magnitude is at
+    least ``0x7f800000``; a NaN in the window makes every output NaN, as in
+    the reference. With ``check_record`` the samples outside the window are
+    checked as well (a missing A-scan is one with a non-finite sample
+    anywhere), fused into the same pass.
+
+Threshold
+    The threshold (float64 %FSH) is turned into the smallest key whose
+    %FSH value is at or above it, once per call, so the comparisons in the
+    loop are exact integer comparisons that agree with the reference's
+    float64 comparisons sample for sample.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+try:  # numba is a dependency; the numpy reference kernel is the fallback should it fail to import
+    from numba import njit
+
+    HAVE_NUMBA = True
+except ImportError:  # pragma: no cover - exercised only without numba
+    HAVE_NUMBA = False
+
+__all__ = ["HAVE_NUMBA", "BLOCK", "KIND_INT_ABS", "KIND_INT", "KIND_F32_ABS", "KIND_F32",
+           "KIND_I16_ABS", "gate_rows",
+           "threshold_key", "nonfinite_rows", "sample_kind"]
+
+#: Samples per block of the first (vectorised) sweep over the window.
+BLOCK = 128
+
+#: A-scans swept in one batch before they are finished one by one (their samples are then still cached).
+ROWS = 16
+
+KIND_INT_ABS = 0  # integer counts, rectified here: key = |count| (int32)
+KIND_INT = 1  # integer counts as recorded: key = count
+KIND_F32_ABS = 2  # float32 bit patterns (as int32), rectified here: key = bits & 0x7fffffff
+KIND_F32 = 3  # float32 bit patterns as recorded: key = +-(bits & 0x7fffffff)
+KIND_I16_ABS = 4  # int16 counts rectified here: as KIND_INT_ABS, swept in 16-bit lanes (|-32768| fits uint16)
+
+_MAG = 0x7FFFFFFF
+_NONFINITE = 0x7F800000  # magnitude bits of +inf; anything at or above is inf or NaN
+
+
+def sample_kind(dtype: np.dtype, rectify: bool) -> int:
+    """The kernel's key kind for samples of `dtype` (integer or float32)."""
+    if np.issubdtype(dtype, np.integer):
+        if rectify and np.dtype(dtype) == np.int16:
+            return KIND_I16_ABS
+        return KIND_INT_ABS if rectify else KIND_INT
+    return KIND_F32_ABS if rectify else KIND_F32
+
+
+def _f32_key(value: np.float32) -> int:
+    bits = int(np.array(value, dtype=np.float32).view(np.int32))
+    mag = bits & _MAG
+    return -mag if bits < 0 else mag
+
+
+def threshold_key(threshold: float, kind: int, scale: float) -> int:
+    """The smallest key whose %FSH value, as float64, is >= `threshold`.
+
+    For integer kinds the value of key ``k`` is ``float64(float32(k) *
+    float32(scale))``, as :func:`ndtmap.grid.ascan_in_fsh` computes it; for
+    float32 kinds it is the float32 number itself.
+    """
+    thr = float(threshold)
+    if kind in (KIND_F32_ABS, KIND_F32):
+        f = np.float32(thr)
+        if float(f) < thr:
+            f = np.nextafter(f, np.float32(np.inf))
+        return _f32_key(f)
+    s32 = np.float32(scale)
+
+    def value(k: int) -> float:
+        return float(np.float32(k) * s32)
+
+    limit = 2**40  # beyond any integer sample; keeps the search finite
+    k = int(min(max(math.ceil(thr / float(s32)), -limit), limit))
+    while k > -limit and value(k - 1) >= thr:
+        k -= 1
+    while k < limit and value(k) < thr:
+        k += 1
+    return k
+
+
+if HAVE_NUMBA:
+    # Samples are read as xk[t, j] with unsigned indices: numba then emits no negative-index fix-up and
+    # creates no array views (each view costs a reference-count update), which keeps the loops SIMD and
+    # the per-A-scan work small.
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _at(xk, t, j):  # pragma: no cover - compiled
+        return xk[np.uint64(t), np.uint64(j)]
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _key(v, kind):  # pragma: no cover - compiled
+        """Integer key of one sample (int32 arithmetic throughout, so loops stay in wide SIMD lanes)."""
+        i32 = np.int32
+        r = i32(v)
+        if kind == KIND_INT_ABS or kind == KIND_I16_ABS:
+            return i32(r if r >= 0 else -r)
+        if kind == KIND_INT:
+            return r
+        u = i32(r & i32(_MAG))
+        if kind == KIND_F32_ABS:
+            return u
+        return i32(-u if r < 0 else u)
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _value(xk, xv, t, j, kind, s32):  # pragma: no cover - compiled
+        """The %FSH value of sample j of row t (float64), computed as the reference computes it."""
+        if kind == KIND_INT_ABS or kind == KIND_I16_ABS:
+            return np.float64(np.float32(_key(_at(xk, t, j), kind)) * s32)
+        if kind == KIND_INT:
+            return np.float64(np.float32(_at(xk, t, j)) * s32)
+        if kind == KIND_F32_ABS:
+            return abs(np.float64(_at(xv, t, j)))
+        return np.float64(_at(xv, t, j))
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _key_value(key, kind, s32, bits, bits_f32):  # pragma: no cover - compiled
+        """The %FSH value (float64) of a key >= 0 (a sample at or above a threshold >= 0)."""
+        if kind == KIND_F32_ABS or kind == KIND_F32:
+            bits[0] = key  # a non-negative key is the bit pattern itself
+            return np.float64(bits_f32[0])
+        return np.float64(np.float32(key) * s32)
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _sweep(xk, t, j0, kind, count):  # pragma: no cover - compiled
+        """Largest key and largest magnitude bits (float kinds; the NaN check) of samples j0 .. j0 + count - 1.
+
+        Called with the constant BLOCK the loop has a fixed length; int32 (for int16 data uint16)
+        arithmetic throughout keeps it in wide SIMD lanes.
+        """
+        i32 = np.int32
+        ut = np.uint64(t)
+        uj = np.uint64(j0)
+        if kind == KIND_I16_ABS:
+            m16 = np.uint16(0)
+            for j in range(count):
+                v = xk[ut, uj + np.uint64(j)]
+                m16 = np.uint16(max(m16, np.uint16(v) if v >= 0 else np.uint16(-v)))
+            return i32(m16), i32(0)
+        if kind == KIND_F32:
+            mask = i32(_MAG)
+            m = i32(-(2**31))
+            a = i32(0)
+            for j in range(count):
+                r = i32(xk[ut, uj + np.uint64(j)])
+                u = i32(r & mask)
+                m = i32(max(m, i32(-u if r < 0 else u)))
+                a = i32(max(a, u))
+            return m, a
+        m = i32(-(2**31))
+        for j in range(count):
+            m = i32(max(m, _key(xk[ut, uj + np.uint64(j)], kind)))
+        return m, (m if kind == KIND_F32_ABS else i32(0))
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _least(xk, t, j0, kind, count):  # pragma: no cover - compiled
+        """Smallest key of samples j0 .. j0 + count - 1 of row t."""
+        i32 = np.int32
+        ut = np.uint64(t)
+        uj = np.uint64(j0)
+        n = i32(2**31 - 1)
+        for j in range(count):
+            n = i32(min(n, _key(xk[ut, uj + np.uint64(j)], kind)))
+        return n
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _first(xk, t, j0, kind, key, count, at_least):  # pragma: no cover - compiled
+        """Offset from j0 of the first sample whose key equals (or, `at_least`, reaches) `key` (count if none)."""
+        ut = np.uint64(t)
+        uj = np.uint64(j0)
+        if kind == KIND_I16_ABS:  # 16-bit lanes: keys are 0 .. 32768 and offsets below BLOCK
+            k16 = np.uint16(max(0, min(key, 65535)))
+            first16 = np.int16(count)
+            for j in range(count):
+                v = xk[ut, uj + np.uint64(j)]
+                u = np.uint16(v) if v >= 0 else np.uint16(-v)
+                hit = u >= k16 if at_least else u == k16
+                first16 = np.int16(min(first16, np.int16(j) if hit else np.int16(count)))
+            return np.int64(first16)
+        i32 = np.int32
+        first = i32(count)
+        for j in range(count):
+            v = _key(xk[ut, uj + np.uint64(j)], kind)
+            hit = v >= key if at_least else v == key
+            first = i32(min(first, i32(j) if hit else i32(count)))
+        return np.int64(first)
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _find(xk, t, j0, seglen, kind, key, at_least):  # pragma: no cover - compiled
+        """Index of the first sample of the block j0 .. j0 + seglen - 1 whose key equals (reaches) `key`."""
+        if seglen == BLOCK:
+            return j0 + _first(xk, t, j0, kind, key, BLOCK, at_least)
+        return j0 + _first(xk, t, j0, kind, key, seglen, at_least)
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _block_least(xk, t, j0, seglen, kind):  # pragma: no cover - compiled
+        if seglen == BLOCK:
+            return _least(xk, t, j0, kind, BLOCK)
+        return _least(xk, t, j0, kind, seglen)
+
+    @njit(cache=True, nogil=True)
+    def _outside_magnitude(xk, t, lo, hi):  # pragma: no cover - compiled
+        """Largest float32 magnitude (bits) of row t outside [lo, hi]: >= 0x7f800000 means a non-finite sample."""
+        i32 = np.int32
+        ut = np.uint64(t)
+        mask = i32(_MAG)
+        a = i32(0)
+        for j in range(lo):
+            a = i32(max(a, i32(i32(xk[ut, np.uint64(j)]) & mask)))
+        for j in range(hi + 1, xk.shape[1]):
+            a = i32(max(a, i32(i32(xk[ut, np.uint64(j)]) & mask)))
+        return a
+
+    def _make_gate_rows(kind: int):
+        """The gate kernel for one key kind (a compile-time constant, so no branch on it is left in the loops)."""
+
+        @njit(cache=True, nogil=True)
+        def gate_rows(xk, xv, base, length, starts, ends, t0, dt, thr, key_thr, hold, s32, check_record,
+                      peak, peak_time, cross_time, cross_peak):  # pragma: no cover - compiled
+            """Gate every row of `xk` (A-scans along the last axis) in the virtual slice [base, base + length).
+
+            `starts`/`ends` are inclusive window bounds per row in sample numbers of that slice (float, NaN:
+            no window), `t0` the time of sample `base`. Outputs are written into the four float64 arrays.
+            """
+            i32 = np.int32
+            n_rows = xk.shape[0]
+            n_blocks = (length + BLOCK - 1) // BLOCK + 1
+            bmax = np.empty((ROWS, n_blocks), dtype=np.int32)
+            swept = np.empty(ROWS, dtype=np.bool_)
+            bits = np.empty(1, dtype=np.int32)  # to read a float32 key back as its number
+            bits_f32 = bits.view(np.float32)
+            h = max(1, hold)
+            kt = i32(key_thr)
+            nan = np.nan
+            for first_row in range(0, n_rows, ROWS):
+                end_row = min(first_row + ROWS, n_rows)
+                # phase 1, a tight streaming loop over a batch of A-scans: the largest key of every block.
+                # The last block is moved back to end at `hi` (overlapping the one before), so that all
+                # blocks of a window of BLOCK samples or more are whole; block b starts at
+                # min(lo + b BLOCK, last). Phase 2 then finishes each A-scan of the batch from the cache.
+                for t in range(first_row, end_row):
+                    r = t - first_row
+                    s = starts[t]
+                    e = ends[t]
+                    swept[r] = False
+                    if not (s <= e and s >= 0.0 and e <= length - 1):  # also False for NaN
+                        continue
+                    lo = base + np.int64(s)
+                    hi = base + np.int64(e)
+                    w = hi - lo + 1
+                    seglen = min(BLOCK, w)
+                    last = hi - seglen + 1
+                    nb = (w + BLOCK - 1) // BLOCK
+                    mag = i32(0)
+                    if seglen == BLOCK:
+                        for b in range(nb):
+                            m, a = _sweep(xk, t, min(lo + b * BLOCK, last), kind, BLOCK)
+                            bmax[r, b] = m
+                            mag = i32(max(mag, a))
+                    else:
+                        m, a = _sweep(xk, t, lo, kind, seglen)
+                        bmax[r, 0] = m
+                        mag = a
+                    if kind == KIND_F32_ABS or kind == KIND_F32:
+                        if mag > _NONFINITE:  # NaN in the window
+                            continue
+                        if check_record and max(mag, _outside_magnitude(xk, t, lo, hi)) >= _NONFINITE:
+                            continue
+                    swept[r] = True
+                for t in range(first_row, end_row):
+                    r = t - first_row
+                    peak[t] = nan
+                    peak_time[t] = nan
+                    cross_time[t] = nan
+                    cross_peak[t] = nan
+                    if not swept[r]:
+                        continue
+                    lo = base + np.int64(starts[t])
+                    hi = base + np.int64(ends[t])
+                    w = hi - lo + 1
+                    seglen = min(BLOCK, w)
+                    last = hi - seglen + 1
+                    nb = (w + BLOCK - 1) // BLOCK
+                    top = bmax[r, 0]
+                    for b in range(1, nb):
+                        top = max(top, bmax[r, b])
+                    # highest sample: the first block holding the maximum, then the first sample in it
+                    if kind == KIND_F32 and top <= -_NONFINITE:
+                        k = base  # every sample is -inf: numpy's argmax answers the first sample of the slice
+                    else:
+                        b = 0
+                        while bmax[r, b] != top:
+                            b += 1
+                        k = _find(xk, t, min(lo + b * BLOCK, last), seglen, kind, top, False)
+                    pk = _value(xk, xv, t, k, kind, s32)
+                    delta = 0.0
+                    if k - 1 >= lo and k + 1 <= hi:
+                        y0 = _value(xk, xv, t, k - 1, kind, s32)
+                        y2 = _value(xk, xv, t, k + 1, kind, s32)
+                        denom = y0 - 2.0 * pk + y2
+                        if denom < 0:
+                            delta = 0.5 * (y0 - y2) / denom
+                            if delta < -0.5:
+                                delta = -0.5
+                            elif delta > 0.5:
+                                delta = 0.5
+                    peak[t] = pk
+                    peak_time[t] = t0 + (np.float64(k - base) + delta) * dt
+                    if top < kt:
+                        continue
+                    # first crossing: the first block that reaches the threshold, then the first sample in it
+                    b = 0
+                    while bmax[r, b] < kt:
+                        b += 1
+                    c = _find(xk, t, min(lo + b * BLOCK, last), seglen, kind, kt, True)
+                    yc = _value(xk, xv, t, c, kind, s32)
+                    if c <= lo:
+                        frac = 1.0
+                    else:
+                        yp = _value(xk, xv, t, c - 1, kind, s32)
+                        frac = (thr - yp) / (yc - yp)
+                        if frac < 0.0:
+                            frac = 0.0
+                        elif frac > 1.0:
+                            frac = 1.0
+                    cross_time[t] = t0 + (np.float64(c - 1 - base) + frac) * dt
+                    # the crossing echo ends where `h` samples in a row lie below the threshold. Its peak is
+                    # the largest key from the crossing on: the samples of the final run lie below the
+                    # threshold and so below the crossing sample, and cannot change it. A block that lies
+                    # wholly at or above the threshold (its least key, read from the cache) is taken at once.
+                    best = _key(_at(xk, t, c), kind)
+                    run = 0
+                    j = c + 1
+                    while j <= hi:
+                        if run == 0 and (j - lo) % BLOCK == 0:
+                            bb = (j - lo) // BLOCK
+                            j0 = min(lo + bb * BLOCK, last)
+                            if _block_least(xk, t, j0, seglen, kind) >= kt:
+                                best = max(best, bmax[r, bb])
+                                j = j0 + seglen
+                                continue
+                        kj = _key(_at(xk, t, j), kind)
+                        best = max(best, kj)
+                        run = 0 if kj >= kt else run + 1
+                        if run >= h:
+                            break
+                        j += 1
+                    cross_peak[t] = _key_value(best, kind, s32, bits, bits_f32)
+
+        return gate_rows
+
+    _GATE_ROWS = {k: _make_gate_rows(k) for k in (KIND_INT_ABS, KIND_INT, KIND_F32_ABS, KIND_F32, KIND_I16_ABS)}
+
+    @njit(cache=True, nogil=True)
+    def nonfinite_rows(xk, out):  # pragma: no cover - compiled
+        """out[t] = True where row t of float32 bit patterns holds a NaN or infinity."""
+        i32 = np.int32
+        mask = i32(_MAG)
+        for t in range(xk.shape[0]):
+            ut = np.uint64(t)
+            a = i32(0)
+            for j in range(xk.shape[1]):
+                a = i32(max(a, i32(i32(xk[ut, np.uint64(j)]) & mask)))
+            out[t] = a >= _NONFINITE
+
+else:  # pragma: no cover
+    _GATE_ROWS = {}
+    nonfinite_rows = None
+
+
+def gate_rows(xk, xv, kind, *args):  # type: ignore[no-untyped-def]
+    """Run the compiled gate kernel of key kind `kind` (see :func:`_make_gate_rows`)."""
+    return _GATE_ROWS[kind](xk, xv, *args)
+
+
+_SLAB_BYTES = 32 * 2**20  # float64 (or other) samples are converted to float32 this many bytes at a time
+
+
+def gate_kernel(
+    samples: np.ndarray,
+    i_start: np.ndarray | float,
+    i_end: np.ndarray | float,
+    *,
+    t0_us: float,
+    dt_us: float,
+    threshold: float,
+    hold: int,
+    base: int = 0,
+    length: int | None = None,
+    scale: float = 1.0,
+    rectify: bool = False,
+    check_record: bool = False,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """All outputs of one gate from the recorded samples, in one read of the window.
+
+    Equals :func:`ndtmap.gates._gate_kernel` applied to the detection signal
+    of ``samples[..., base:base + length]`` (``|a|`` with `rectify`, the
+    counts times `scale` for integer data, float32 throughout), with the
+    window ``[i_start, i_end]`` counted from `base` and `t0_us` the time of
+    sample `base`; the samples outside that slice are never read, except
+    with `check_record`, which also makes every output NaN for an A-scan
+    with a NaN or infinite sample anywhere on the last axis (a missing
+    A-scan).
+
+    Parameters
+    ----------
+    samples : ndarray (..., n)
+        int8/16, uint8/16 counts or float32/float64 samples (float64 is
+        converted to float32, as :func:`ndtmap.grid.ascan_in_fsh` does).
+    i_start, i_end : float or ndarray (...)
+        Inclusive window per A-scan in samples from `base` (NaN: none).
+    t0_us, dt_us, threshold, hold
+        As for the reference kernel; `threshold` must be >= 0.
+    base, length : int
+        The slice of the last axis the window numbers refer to (default
+        the whole axis).
+    scale : float
+        %FSH per count for integer samples (ignored for float samples).
+    rectify : bool
+        Take ``|a|`` (RF data); otherwise the samples as they are.
+    check_record : bool
+        Treat A-scans with a non-finite sample anywhere as missing.
+
+    Returns
+    -------
+    peak, peak_time, cross_time, cross_peak : ndarray (...) float64
+    """
+    x = np.asarray(samples)
+    n = x.shape[-1]
+    lead = x.shape[:-1]
+    length = n - base if length is None else int(length)
+    if not HAVE_NUMBA:  # pragma: no cover
+        raise RuntimeError("numba is not available")
+    if threshold < 0:
+        raise ValueError("the compiled gate kernel needs a threshold >= 0")
+    if not (0 <= base and base + length <= n):
+        raise ValueError(f"slice {base} + {length} does not fit a record of {n} samples")
+    rows = int(np.prod(lead)) if lead else 1
+    outs = tuple(np.empty(rows) for _ in range(4))
+    if rows == 0 or n == 0 or length <= 0:
+        for o in outs:
+            o.fill(np.nan)
+        return tuple(o.reshape(lead) for o in outs)  # type: ignore[return-value]
+    starts = np.ascontiguousarray(np.broadcast_to(np.asarray(i_start, dtype=np.float64), lead).reshape(rows))
+    ends = np.ascontiguousarray(np.broadcast_to(np.asarray(i_end, dtype=np.float64), lead).reshape(rows))
+    x2 = x.reshape(rows, n)
+    if x2.dtype.kind in "iu" and x2.dtype.itemsize <= 2:
+        kind = sample_kind(x2.dtype, rectify)
+        slabs = [(0, rows, x2.astype(x2.dtype.newbyteorder("="), copy=False))]
+    else:
+        kind = sample_kind(np.dtype(np.float32), rectify)
+        per = max(1, _SLAB_BYTES // max(1, n * x2.dtype.itemsize))
+        slabs = [(r0, min(rows, r0 + per), None) for r0 in range(0, rows, per)] if x2.dtype != np.float32 else [
+            (0, rows, x2.astype(np.float32, copy=False))]
+    key_thr = threshold_key(threshold, kind, scale)
+    key_thr = int(min(max(key_thr, -(2**31)), 2**31 - 1))
+    s32 = np.float32(scale)
+    dummy = np.zeros((1, 1), dtype=np.float32)
+    for r0, r1, block in slabs:
+        if block is None:
+            block = x2[r0:r1].astype(np.float32)
+        if block.dtype == np.float32:
+            xk, xv = block.view(np.int32), block
+        else:
+            xk, xv = block, dummy
+        if r0 == 0 and r1 == rows:
+            part_outs = outs
+            st, en = starts, ends
+        else:
+            part_outs = tuple(o[r0:r1] for o in outs)
+            st, en = starts[r0:r1], ends[r0:r1]
+        gate_rows(xk, xv, kind, int(base), int(length), st, en, float(t0_us), float(dt_us), float(threshold),
+                  key_thr, int(hold), s32, bool(check_record), *part_outs)
+    return tuple(o.reshape(lead) for o in outs)  # type: ignore[return-value]

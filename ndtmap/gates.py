@@ -483,6 +483,8 @@ class _Evaluator:
         integer = np.issubdtype(a.dtype, np.integer)
         scale = float(a.attrs.get("fsh_per_count", 1.0)) if integer else 1.0
         rectify = str(a.attrs.get("signal", "rf")) == "rf"
+        a = a.copy(deep=False)
+        a.attrs = {"units": "%FSH", "long_name": f"A-scan amplitude ({self.detect})"}  # as detected_signal
         return whole_time(a), {"scale": scale, "rectify": rectify, "check_record": not integer}
 
     def relative_us(self, gate: Gate) -> tuple[float, float]:

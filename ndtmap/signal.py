@@ -63,7 +63,7 @@ DETECTIONS = ("rectified", "envelope", "none")
 _ENVELOPE_BLOCK_BYTES = 4 * 2**20  # float64 samples per FFT block: a few MiB, whatever the size of the grid
 
 
-def _envelope_kernel(x: np.ndarray, scale: float | None = None, missing: np.ndarray | None = None) -> np.ndarray:
+def _envelope_kernel(x: np.ndarray, missing: np.ndarray | None = None, *, scale: float | None = None) -> np.ndarray:
     """|analytic signal| along the last axis, float32, computed over blocks of A-scans.
 
     The analytic signal is ``a + i H[a]`` as :func:`scipy.signal.hilbert`

@@ -431,5 +431,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_INTERNAL
 
 
+def _register_speed_commands() -> None:
+    from .convert_cli import register as register_convert
+
+    _EXTRA_COMMANDS.append(register_convert)
+
+
+_register_speed_commands()
+
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())

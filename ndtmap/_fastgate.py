@@ -407,6 +407,9 @@ def gate_rows(xk, xv, kind, *args):  # type: ignore[no-untyped-def]
 
 _SLAB_BYTES = 32 * 2**20  # float64 (or other) samples are converted to float32 this many bytes at a time
 
+#: Smallest array (bytes) worth splitting over threads.
+THREAD_MIN_BYTES = 32 * 2**20
+
 
 def gate_kernel(
     samples: np.ndarray,
@@ -422,6 +425,7 @@ def gate_kernel(
     scale: float = 1.0,
     rectify: bool = False,
     check_record: bool = False,
+    threads: int = 1,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """All outputs of one gate from the recorded samples, in one read of the window.
 
@@ -452,6 +456,10 @@ def gate_kernel(
         Take ``|a|`` (RF data); otherwise the samples as they are.
     check_record : bool
         Treat A-scans with a non-finite sample anywhere as missing.
+    threads : int
+        Split the A-scans over this many threads (the kernel releases the
+        GIL) when there are at least :data:`THREAD_MIN_BYTES` of samples;
+        1 inside dask tasks, which are parallel already.
 
     Returns
     -------
@@ -476,31 +484,39 @@ def gate_kernel(
     starts = np.ascontiguousarray(np.broadcast_to(np.asarray(i_start, dtype=np.float64), lead).reshape(rows))
     ends = np.ascontiguousarray(np.broadcast_to(np.asarray(i_end, dtype=np.float64), lead).reshape(rows))
     x2 = x.reshape(rows, n)
+    n_threads = max(1, int(threads)) if x2.nbytes >= THREAD_MIN_BYTES else 1
     if x2.dtype.kind in "iu" and x2.dtype.itemsize <= 2:
         kind = sample_kind(x2.dtype, rectify)
-        slabs = [(0, rows, x2.astype(x2.dtype.newbyteorder("="), copy=False))]
+        whole: np.ndarray | None = x2.astype(x2.dtype.newbyteorder("="), copy=False)
     else:
         kind = sample_kind(np.dtype(np.float32), rectify)
+        whole = x2 if x2.dtype == np.float32 else None  # other floats: converted slab by slab
+    if whole is not None:
+        bounds = np.linspace(0, rows, n_threads + 1).astype(int)
+    else:
         per = max(1, _SLAB_BYTES // max(1, n * x2.dtype.itemsize))
-        slabs = [(r0, min(rows, r0 + per), None) for r0 in range(0, rows, per)] if x2.dtype != np.float32 else [
-            (0, rows, x2.astype(np.float32, copy=False))]
-    key_thr = threshold_key(threshold, kind, scale)
-    key_thr = int(min(max(key_thr, -(2**31)), 2**31 - 1))
+        bounds = np.r_[np.arange(0, rows, per), rows]
+    jobs = [(int(r0), int(r1)) for r0, r1 in zip(bounds[:-1], bounds[1:], strict=True) if r1 > r0]
+    key_thr = int(min(max(threshold_key(threshold, kind, scale), -(2**31)), 2**31 - 1))
     s32 = np.float32(scale)
     dummy = np.zeros((1, 1), dtype=np.float32)
-    for r0, r1, block in slabs:
-        if block is None:
-            block = x2[r0:r1].astype(np.float32)
+
+    def run(job: tuple[int, int]) -> None:
+        r0, r1 = job
+        block = whole[r0:r1] if whole is not None else x2[r0:r1].astype(np.float32)
         if block.dtype == np.float32:
             xk, xv = block.view(np.int32), block
         else:
             xk, xv = block, dummy
-        if r0 == 0 and r1 == rows:
-            part_outs = outs
-            st, en = starts, ends
-        else:
-            part_outs = tuple(o[r0:r1] for o in outs)
-            st, en = starts[r0:r1], ends[r0:r1]
-        gate_rows(xk, xv, kind, int(base), int(length), st, en, float(t0_us), float(dt_us), float(threshold),
-                  key_thr, int(hold), s32, bool(check_record), *part_outs)
+        gate_rows(xk, xv, kind, int(base), int(length), starts[r0:r1], ends[r0:r1], float(t0_us), float(dt_us),
+                  float(threshold), key_thr, int(hold), s32, bool(check_record), *(o[r0:r1] for o in outs))
+
+    if n_threads > 1 and len(jobs) > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=n_threads) as pool:
+            list(pool.map(run, jobs))
+    else:
+        for job in jobs:
+            run(job)
     return tuple(o.reshape(lead) for o in outs)  # type: ignore[return-value]

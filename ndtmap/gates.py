@@ -350,6 +350,16 @@ def _gate_kernel_compiled(samples: np.ndarray, i_start: Any = None, i_end: Any =
                                  **kwargs)
 
 
+def _threads_for(data: xr.DataArray) -> int:
+    """Threads for the compiled kernel: the usable cores for an in-memory grid, 1 in dask tasks (parallel already)."""
+    if is_lazy(data):
+        return 1
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
+
+
 def _choose_kernel(kernel: str | None) -> str:
     """'compiled' or 'numpy': the argument, else the environment variable NDTMAP_KERNEL, else 'compiled'."""
     if kernel is None:
@@ -478,14 +488,16 @@ class _Evaluator:
     def _compiled_input(self) -> tuple[xr.DataArray, dict[str, Any]]:
         """The array the compiled kernel reads and its per-sample conversion."""
         if not self.reads_record:
-            return whole_time(self.signal), {"scale": 1.0, "rectify": False, "check_record": False}
+            sig = whole_time(self.signal)
+            return sig, {"scale": 1.0, "rectify": False, "check_record": False, "threads": _threads_for(sig)}
         a = self.grid["ascan"]
         integer = np.issubdtype(a.dtype, np.integer)
         scale = float(a.attrs.get("fsh_per_count", 1.0)) if integer else 1.0
         rectify = str(a.attrs.get("signal", "rf")) == "rf"
         a = a.copy(deep=False)
         a.attrs = {"units": "%FSH", "long_name": f"A-scan amplitude ({self.detect})"}  # as detected_signal
-        return whole_time(a), {"scale": scale, "rectify": rectify, "check_record": not integer}
+        a = whole_time(a)
+        return a, {"scale": scale, "rectify": rectify, "check_record": not integer, "threads": _threads_for(a)}
 
     def relative_us(self, gate: Gate) -> tuple[float, float]:
         if gate.unit == "us":

@@ -254,3 +254,16 @@ def test_compiled_kernel_runs_in_dask_threads():
     with dask.config.set(scheduler="threads", num_workers=2):
         lazy = evaluate_gate(g, GATES[0], kernel="compiled").compute()
     assert_same_result(lazy, evaluate_gate(int16_grid(), GATES[0], kernel="numpy"))
+
+
+def test_threads_split_the_ascans_without_changing_a_number(monkeypatch):
+    monkeypatch.setattr(_fastgate, "THREAD_MIN_BYTES", 0)
+    rng = np.random.default_rng(11)
+    for dtype in ("int16", "float32", "float64"):
+        x = (rng.normal(0, 40, (7, 13, 300)) * (300 if dtype == "int16" else 1)).astype(dtype)
+        kw = dict(t0=0.5, dt=0.02, thr=25.0, hold=4, scale=100 / 32767 if dtype == "int16" else 1.0, rectify=True)
+        one = run_compiled(x, 20, 250, 0.0, 249.0, **kw)
+        many = _fastgate.gate_kernel(x, 0.0, 249.0, t0_us=0.5, dt_us=0.02, threshold=25.0, hold=4, base=20,
+                                     length=250, scale=kw["scale"], rectify=True, threads=3)
+        assert_same(many, one, dtype)
+        assert_same(one, reference(x, 20, 250, np.zeros((7, 13)), np.full((7, 13), 249.0), **kw), dtype)

@@ -112,6 +112,38 @@ def threshold_key(threshold: float, kind: int, scale: float) -> int:
 
 
 if HAVE_NUMBA:
+    from llvmlite import ir as _ir
+    from numba import types as _types
+    from numba.core import cgutils as _cgutils
+    from numba.extending import intrinsic as _intrinsic
+
+    @_intrinsic
+    def _prefetch(typingctx, arr, i, j):  # pragma: no cover - compiled
+        """Ask the CPU to start loading the cache line of arr[i, j] into the L2 cache (llvm.prefetch; a hint
+        that changes no value)."""
+        if not isinstance(arr, _types.Array) or arr.ndim != 2:
+            return None
+        sig = _types.void(arr, i, j)
+
+        def codegen(context, builder, signature, args):
+            aryty = signature.args[0]
+            ary = context.make_array(aryty)(context, builder, args[0])
+            inds = [context.cast(builder, args[1], signature.args[1], _types.intp),
+                    context.cast(builder, args[2], signature.args[2], _types.intp)]
+            ptr = _cgutils.get_item_pointer(context, builder, aryty, ary, inds, wraparound=False, boundscheck=False)
+            if getattr(ptr.type, "is_opaque", False):
+                name = "llvm.prefetch.p0"
+            else:  # typed pointers (older LLVM)
+                ptr = builder.bitcast(ptr, _ir.IntType(8).as_pointer())
+                name = "llvm.prefetch.p0i8"
+            i32 = _ir.IntType(32)
+            fnty = _ir.FunctionType(_ir.VoidType(), [ptr.type, i32, i32, i32])
+            fn = _cgutils.get_or_insert_function(builder.module, fnty, name)
+            builder.call(fn, [ptr, i32(0), i32(2), i32(1)])  # read, keep in L2 and below, data
+            return context.get_dummy_value()
+
+        return sig, codegen
+
     # Samples are read as xk[t, j] with unsigned indices: numba then emits no negative-index fix-up and
     # creates no array views (each view costs a reference-count update), which keeps the loops SIMD and
     # the per-A-scan work small.
@@ -185,17 +217,6 @@ if HAVE_NUMBA:
         return m, (m if kind == KIND_F32_ABS else i32(0))
 
     @njit(cache=True, nogil=True, inline="always")
-    def _least(xk, t, j0, kind, count):  # pragma: no cover - compiled
-        """Smallest key of samples j0 .. j0 + count - 1 of row t."""
-        i32 = np.int32
-        ut = np.uint64(t)
-        uj = np.uint64(j0)
-        n = i32(2**31 - 1)
-        for j in range(count):
-            n = i32(min(n, _key(xk[ut, uj + np.uint64(j)], kind)))
-        return n
-
-    @njit(cache=True, nogil=True, inline="always")
     def _first(xk, t, j0, kind, key, count, at_least):  # pragma: no cover - compiled
         """Offset from j0 of the first sample whose key equals (or, `at_least`, reaches) `key` (count if none)."""
         ut = np.uint64(t)
@@ -218,17 +239,26 @@ if HAVE_NUMBA:
         return np.int64(first)
 
     @njit(cache=True, nogil=True, inline="always")
+    def _last_at_least(xk, t, j0, kind, key, count):  # pragma: no cover - compiled
+        """Offset from j0 of the last of `count` samples whose key reaches `key` (-1 if none), and their largest
+        key."""
+        ut = np.uint64(t)
+        uj = np.uint64(j0)
+        i32 = np.int32
+        last = i32(-1)
+        m = i32(-(2**31))
+        for j in range(count):
+            v = _key(xk[ut, uj + np.uint64(j)], kind)
+            last = i32(max(last, i32(j) if v >= key else i32(-1)))
+            m = i32(max(m, v))
+        return np.int64(last), m
+
+    @njit(cache=True, nogil=True, inline="always")
     def _find(xk, t, j0, seglen, kind, key, at_least):  # pragma: no cover - compiled
         """Index of the first sample of the block j0 .. j0 + seglen - 1 whose key equals (reaches) `key`."""
         if seglen == BLOCK:
             return j0 + _first(xk, t, j0, kind, key, BLOCK, at_least)
         return j0 + _first(xk, t, j0, kind, key, seglen, at_least)
-
-    @njit(cache=True, nogil=True, inline="always")
-    def _block_least(xk, t, j0, seglen, kind):  # pragma: no cover - compiled
-        if seglen == BLOCK:
-            return _least(xk, t, j0, kind, BLOCK)
-        return _least(xk, t, j0, kind, seglen)
 
     @njit(cache=True, nogil=True)
     def _outside_magnitude(xk, t, lo, hi):  # pragma: no cover - compiled
@@ -263,6 +293,7 @@ if HAVE_NUMBA:
             bits_f32 = bits.view(np.float32)
             h = max(1, hold)
             kt = i32(key_thr)
+            line = max(1, 64 // xk.itemsize)  # samples per 64-byte cache line
             nan = np.nan
             for first_row in range(0, n_rows, ROWS):
                 end_row = min(first_row + ROWS, n_rows)
@@ -301,6 +332,17 @@ if HAVE_NUMBA:
                     swept[r] = True
                 for t in range(first_row, end_row):
                     r = t - first_row
+                    # while this batch is finished from the cache, the window of the matching A-scan of the
+                    # next batch is requested from memory, so that computing and reading overlap
+                    tn = t + ROWS
+                    if tn < n_rows:
+                        sn = starts[tn]
+                        en = ends[tn]
+                        if sn <= en and sn >= 0.0 and en <= length - 1:
+                            j_end = base + np.int64(en)
+                            for jj in range(base + np.int64(sn), j_end + 1, line):
+                                _prefetch(xk, np.uint64(tn), np.uint64(jj))
+                            _prefetch(xk, np.uint64(tn), np.uint64(j_end))
                     peak[t] = nan
                     peak_time[t] = nan
                     cross_time[t] = nan
@@ -356,27 +398,20 @@ if HAVE_NUMBA:
                         elif frac > 1.0:
                             frac = 1.0
                     cross_time[t] = t0 + (np.float64(c - 1 - base) + frac) * dt
-                    # the crossing echo ends where `h` samples in a row lie below the threshold. Its peak is
-                    # the largest key from the crossing on: the samples of the final run lie below the
-                    # threshold and so below the crossing sample, and cannot change it. A block that lies
-                    # wholly at or above the threshold (its least key, read from the cache) is taken at once.
+                    # the crossing echo ends where `h` samples in a row lie below the threshold. From the last
+                    # sample p at or above the threshold, the next h samples are read at once (SIMD): if none
+                    # reaches the threshold the echo has ended (or runs to the window's end); else the walk
+                    # jumps to the last one that does. Below-threshold samples are below the crossing sample,
+                    # so taking them into the maximum cannot change the echo's peak.
                     best = _key(_at(xk, t, c), kind)
-                    run = 0
-                    j = c + 1
-                    while j <= hi:
-                        if run == 0 and (j - lo) % BLOCK == 0:
-                            bb = (j - lo) // BLOCK
-                            j0 = min(lo + bb * BLOCK, last)
-                            if _block_least(xk, t, j0, seglen, kind) >= kt:
-                                best = max(best, bmax[r, bb])
-                                j = j0 + seglen
-                                continue
-                        kj = _key(_at(xk, t, j), kind)
-                        best = max(best, kj)
-                        run = 0 if kj >= kt else run + 1
-                        if run >= h:
+                    p = c
+                    while p < hi:
+                        count = min(h, hi - p)
+                        jump, top_h = _last_at_least(xk, t, p + 1, kind, kt, count)
+                        if jump < 0:
                             break
-                        j += 1
+                        best = max(best, top_h)
+                        p = p + 1 + jump
                     cross_peak[t] = _key_value(best, kind, s32, bits, bits_f32)
 
         return gate_rows

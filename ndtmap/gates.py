@@ -68,7 +68,6 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from . import _fastgate
 from ._gridops import check_grid, is_lazy, netcdf_safe, part_constants, result_attrs, whole_time
 from ._validate import finite_float, float_in_range, one_of, positive_float
 from .errors import GateError, NdtmapError, ParameterError, ParameterTypeError
@@ -344,6 +343,8 @@ def _gate_kernel_compiled(samples: np.ndarray, i_start: Any = None, i_end: Any =
     `i_start`/`i_end` come either per A-scan (arrays, following gates) or as
     the keyword arguments ``start``/``end`` (fixed gates).
     """
+    from . import _fastgate
+
     start = kwargs.pop("start", None)
     end = kwargs.pop("end", None)
     return _fastgate.gate_kernel(samples, start if i_start is None else i_start, end if i_end is None else i_end,
@@ -362,6 +363,8 @@ def _threads_for(data: xr.DataArray) -> int:
 
 def _choose_kernel(kernel: str | None) -> str:
     """'compiled' or 'numpy': the argument, else the environment variable NDTMAP_KERNEL, else 'compiled'."""
+    from . import _fastgate  # imports numba (about half a second), so only when a gate is evaluated
+
     if kernel is None:
         env = os.environ.get(KERNEL_ENV, "").strip().lower()
         if env and env not in GATE_KERNELS:

@@ -260,17 +260,17 @@ if HAVE_NUMBA:
             return j0 + _first(xk, t, j0, kind, key, BLOCK, at_least)
         return j0 + _first(xk, t, j0, kind, key, seglen, at_least)
 
-    @njit(cache=True, nogil=True)
-    def _outside_magnitude(xk, t, lo, hi):  # pragma: no cover - compiled
-        """Largest float32 magnitude (bits) of row t outside [lo, hi]: >= 0x7f800000 means a non-finite sample."""
+    @njit(cache=True, nogil=True, inline="always")
+    def _magnitude(xk, t, j0, j1):  # pragma: no cover - compiled
+        """Largest float32 magnitude (bits) of samples j0 .. j1 - 1 of row t: >= 0x7f800000 means a non-finite
+        sample."""
         i32 = np.int32
         ut = np.uint64(t)
+        uj = np.uint64(j0)
         mask = i32(_MAG)
         a = i32(0)
-        for j in range(lo):
-            a = i32(max(a, i32(i32(xk[ut, np.uint64(j)]) & mask)))
-        for j in range(hi + 1, xk.shape[1]):
-            a = i32(max(a, i32(i32(xk[ut, np.uint64(j)]) & mask)))
+        for j in range(j1 - j0):
+            a = i32(max(a, i32(i32(xk[ut, uj + np.uint64(j)]) & mask)))
         return a
 
     def _make_gate_rows(kind: int):
@@ -314,6 +314,10 @@ if HAVE_NUMBA:
                     seglen = min(BLOCK, w)
                     last = hi - seglen + 1
                     nb = (w + BLOCK - 1) // BLOCK
+                    check = check_record and (kind == KIND_F32_ABS or kind == KIND_F32)
+                    # with `check`, the samples before the window, the window and the samples after it are
+                    # read in this order, one stream through the record
+                    outside = _magnitude(xk, t, 0, lo) if check else i32(0)
                     mag = i32(0)
                     if seglen == BLOCK:
                         for b in range(nb):
@@ -327,8 +331,10 @@ if HAVE_NUMBA:
                     if kind == KIND_F32_ABS or kind == KIND_F32:
                         if mag > _NONFINITE:  # NaN in the window
                             continue
-                        if check_record and max(mag, _outside_magnitude(xk, t, lo, hi)) >= _NONFINITE:
-                            continue
+                        if check:
+                            outside = i32(max(outside, _magnitude(xk, t, hi + 1, xk.shape[1])))
+                            if outside >= _NONFINITE:
+                                continue
                     swept[r] = True
                 for t in range(first_row, end_row):
                     r = t - first_row
@@ -339,8 +345,9 @@ if HAVE_NUMBA:
                         sn = starts[tn]
                         en = ends[tn]
                         if sn <= en and sn >= 0.0 and en <= length - 1:
-                            j_end = base + np.int64(en)
-                            for jj in range(base + np.int64(sn), j_end + 1, line):
+                            j_start = 0 if check_record else base + np.int64(sn)
+                            j_end = xk.shape[1] - 1 if check_record else base + np.int64(en)
+                            for jj in range(j_start, j_end + 1, line):
                                 _prefetch(xk, np.uint64(tn), np.uint64(jj))
                             _prefetch(xk, np.uint64(tn), np.uint64(j_end))
                     peak[t] = nan

@@ -351,6 +351,30 @@ def _gate_kernel_compiled(samples: np.ndarray, i_start: Any = None, i_end: Any =
                                  **kwargs)
 
 
+def _gate_kernel_stacked(samples: np.ndarray, *windows: np.ndarray, **kwargs: Any) -> np.ndarray:
+    """:func:`_gate_kernel_compiled` on one dask block, the four outputs stacked on a last axis of length 4."""
+    if windows:
+        kwargs = dict(kwargs, i_start=windows[0][..., 0], i_end=windows[1][..., 0])
+    return np.stack(_gate_kernel_compiled(samples, **kwargs), axis=-1)
+
+
+def _gate_outputs_compiled(samples: Any, i_start: Any = None, i_end: Any = None, **kwargs: Any) -> Any:
+    """The four outputs for numpy or dask arrays (``apply_ufunc(..., dask='allowed')``).
+
+    A dask array is mapped block by block with the time axis kept (its blocks
+    give a last axis of 4 outputs), not contracted: a contracted core axis
+    makes dask copy every block once more before the kernel sees it.
+    """
+    if not hasattr(samples, "dask"):
+        return _gate_kernel_compiled(samples, i_start, i_end, **kwargs)
+    import dask.array as da
+
+    extra = [] if i_start is None else [da.asarray(i_start)[..., None], da.asarray(i_end)[..., None]]
+    stacked = da.map_blocks(_gate_kernel_stacked, samples, *extra, dtype=np.float64,
+                            chunks=(*samples.chunks[:-1], (4,)), meta=np.empty((0,) * samples.ndim), **kwargs)
+    return tuple(stacked[..., k] for k in range(4))
+
+
 def _threads_for(data: xr.DataArray) -> int:
     """Threads for the compiled kernel: the usable cores for an in-memory grid, 1 in dask tasks (parallel already)."""
     if is_lazy(data):
@@ -576,8 +600,8 @@ class _Evaluator:
                 data, conversion = self._compiled_input()
                 kwargs.update(conversion, base=i0, length=i1 - i0 + 1, start=0.0, end=float(i1 - i0))
                 outs = xr.apply_ufunc(
-                    _gate_kernel_compiled, data, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
-                    kwargs=kwargs, dask="parallelized", output_dtypes=[np.float64] * 4,
+                    _gate_outputs_compiled, data, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
+                    kwargs=kwargs, dask="allowed",
                 )
             else:
                 sig = whole_time(self.signal.isel(time=slice(i0, i1 + 1)))
@@ -603,9 +627,8 @@ class _Evaluator:
                 data, conversion = self._compiled_input()
                 kwargs.update(conversion, base=k0, length=k1 - k0 + 1)
                 outs = xr.apply_ufunc(
-                    _gate_kernel_compiled, data, i0, i1, input_core_dims=[["time"], [], []],
-                    output_core_dims=[[], [], [], []], kwargs=kwargs, dask="parallelized",
-                    output_dtypes=[np.float64] * 4,
+                    _gate_outputs_compiled, data, i0, i1, input_core_dims=[["time"], [], []],
+                    output_core_dims=[[], [], [], []], kwargs=kwargs, dask="allowed",
                 )
             else:
                 sig = whole_time(self.signal.isel(time=slice(k0, k1 + 1)))

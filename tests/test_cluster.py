@@ -106,3 +106,16 @@ def test_an_unreachable_scheduler_is_one_clear_error():
     with pytest.raises(ParameterError, match=r"`scheduler` tcp://127.0.0.1:9 did not answer"):
         with use_scheduler("tcp://127.0.0.1:9", timeout_s=1.0):
             pass
+
+
+def test_indications_command_with_a_scheduler(cluster, tmp_path, capsys):
+    import json
+
+    g = int16_plate(n_scan=10)
+    store = write_zarr(g, tmp_path / "KFP-PL-2041.zarr", chunk_scan=5)
+    args = [str(store), "--gate-mm", "10", "14", "--threshold-fsh", "30", "--format", "json"]
+    assert main(["indications", *args]) == 0
+    local = json.loads(capsys.readouterr().out)
+    assert main(["indications", *args, "--scheduler", cluster.scheduler_address]) == 0
+    remote = json.loads(capsys.readouterr().out)
+    assert remote["indications"] == local["indications"]

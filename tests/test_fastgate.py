@@ -267,3 +267,19 @@ def test_threads_split_the_ascans_without_changing_a_number(monkeypatch):
                                      length=250, scale=kw["scale"], rectify=True, threads=3)
         assert_same(many, one, dtype)
         assert_same(one, reference(x, 20, 250, np.zeros((7, 13)), np.full((7, 13), 249.0), **kw), dtype)
+
+
+def test_compiled_kernel_inside_apply_ufunc_parallelized():
+    # the kernel as a plain dask="parallelized" ufunc on dask chunks gives the in-memory numbers
+    from ndtmap.gates import _gate_kernel_compiled
+
+    g = int16_grid()
+    kw = dict(t0_us=0.0, dt_us=0.02, threshold=20.0, hold=10, base=0, length=g.sizes["time"], start=0.0,
+              end=float(g.sizes["time"] - 1), scale=100.0 / 32767, rectify=True, check_record=False)
+    lazy = xr.apply_ufunc(_gate_kernel_compiled, g.ascan.chunk({"scan": 2}), input_core_dims=[["time"]],
+                          output_core_dims=[[], [], [], []], kwargs=dict(kw), dask="parallelized",
+                          output_dtypes=[np.float64] * 4)
+    eager = _gate_kernel_compiled(g.ascan.values, **dict(kw))
+    for a, b in zip(lazy, eager, strict=True):
+        assert a.chunks is not None
+        np.testing.assert_array_equal(a.values, b)

@@ -117,11 +117,17 @@ def _run_child(args: list[str]) -> dict:
     return report
 
 
-def run(size_gb: float, *, folder: Path | None = None, chunk_scan: int = 8, map_chunk_scan: int | None = None,
+def run(size_gb: float, *, folder: Path | None = None, chunk_scan: int | None = None,
+        map_chunk_scan: int | None = None,
         seed: int = 7730, keep: bool = False, n_index: int = N_INDEX, n_time: int = N_TIME,
         writer: str = "write_zarr") -> dict:
     """Build, map and measure; returns the numbers (see the module docstring)."""
     n_scan, n_index, n_time = shape_for(size_gb, n_index, n_time)
+    if chunk_scan is None:  # the chunks `ndtmap convert` would choose
+        sys.path[:0] = [str(ROOT)]
+        from ndtmap.convert import zarr_chunks
+
+        chunk_scan = zarr_chunks((n_scan, n_index, n_time), 2)[0]
     folder = Path(folder or tempfile.gettempdir())
     need = 1.2 * n_scan * n_index * n_time * 2
     free = shutil.disk_usage(folder).free
@@ -137,6 +143,7 @@ def run(size_gb: float, *, folder: Path | None = None, chunk_scan: int = 8, map_
         if not keep:
             shutil.rmtree(work, ignore_errors=True)
     return {"shape": [n_scan, n_index, n_time], "samples_gb": n_scan * n_index * n_time * 2 / 1e9,
+            "store_chunks": [chunk_scan, n_index, n_time],
             "free_disk_gb_before": free / 1e9, "store": str(store) if keep else None, "build": build, "map": mapped}
 
 
@@ -144,7 +151,7 @@ def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     p.add_argument("--size-gb", type=float, default=10.0, help="size of the int16 samples, GB (default 10)")
     p.add_argument("--dir", type=Path, help="folder for the store (default the temp folder)")
-    p.add_argument("--chunk-scan", type=int, default=8, help="scan lines per dask chunk while building")
+    p.add_argument("--chunk-scan", type=int, help="scan lines per chunk of the store (default: as ndtmap convert)")
     p.add_argument("--keep", action="store_true", help="keep the store")
     p.add_argument("--writer", choices=("write_zarr", "save_grid"), default="write_zarr",
                    help="how the store is built (default write_zarr, the writer of `ndtmap convert`)")
@@ -168,7 +175,7 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     b, m = report["build"], report["map"]
     print(f"grid {' x '.join(map(str, report['shape']))} int16 = {report['samples_gb']:.2f} GB of samples; "
-          f"store {m['store_gb']:.2f} GB on disk (Blosc-zstd)")
+          f"store {m['store_gb']:.2f} GB on disk (Blosc-zstd), chunks {tuple(report['store_chunks'])}")
     print(f"build ({b['writer']}, chunk by chunk): {b['build_s']:.1f} s, peak RSS {b['peak_mb']:.0f} MB "
           f"(after imports {b['baseline_mb']:.0f} MB)")
     for name, seconds in m["map_s"].items():

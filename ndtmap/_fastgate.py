@@ -1,39 +1,51 @@
 """The compiled gate kernel: every output of a gate in one read of the window (private).
 
-:func:`gate_rows` gives exactly what :func:`ndtmap.gates._gate_kernel` (the
-numpy reference) gives on the detection signal, but works on the recorded
-samples directly: int16 (and other integer) counts are scaled to %FSH one
-sample at a time, RF data are rectified one sample at a time (``abs`` in
-int32, so -32768 cannot overflow), and nothing the size of the window is
-allocated.
+:func:`gate_kernel` gives exactly what :func:`ndtmap.gates._gate_kernel` (the
+numpy reference) gives on the detection signal, bit for bit, but works on the
+recorded samples directly: int16 (and other integer) counts are scaled to
+%FSH one sample at a time, RF data are rectified one sample at a time (``abs``
+in int32 or uint16, so -32768 cannot overflow), and nothing the size of the
+window is allocated.
 
-How one A-scan is read
+How the A-scans are read
     Samples are compared through an integer *key* that orders them exactly
-    as their %FSH values do: the count itself (``abs`` in int32 for RF) for
-    integer data; for float32 data the IEEE-754 bit pattern (the sign bit
-    cleared for RF, negative values negated for signed data, so that -0.0
-    and +0.0 share a key). Integer maxima vectorise (SIMD); float maxima in
-    IEEE semantics do not. The window is cut into blocks of
-    :data:`BLOCK` samples and the largest key of every block is kept (a
-    few hundred bytes on the stack of the loop). The highest sample, the
-    first sample at or above the threshold and the start of the crossing
-    echo are then found from the block maxima, reading only the one block
-    that holds them again (from the L1 cache, not from memory). Only the
-    crossing echo (from the crossing to ``hold`` samples below the
-    threshold) is walked sample by sample, and blocks that lie entirely
-    above the threshold are skipped by their block minimum.
+    as their %FSH values do: the count itself (its absolute value for RF)
+    for integer data; for float32 data the IEEE-754 bit pattern (the sign
+    bit cleared for RF, negative values negated for signed data, so that
+    -0.0 and +0.0 share a key). Integer maxima vectorise (SIMD); float
+    maxima with IEEE NaN rules do not.
+
+    A batch of :data:`ROWS` A-scans is swept first: each window is cut into
+    blocks of :data:`BLOCK` samples and the largest key of every block is
+    kept (the last block is moved back to end at the window's end, so every
+    block is whole). This is the only pass that reads the window from
+    memory. Each A-scan of the batch is then finished from the cache: the
+    highest sample (the first block holding the maximum, then the first
+    sample in it), the parabola through it and its neighbours, the first
+    sample at or above the threshold (found the same way), the linear
+    interpolation of the crossing, and the crossing echo, followed ``hold``
+    samples at a time until ``hold`` samples in a row lie below the
+    threshold. While a batch is finished, the windows of the next batch
+    are requested from memory (a prefetch hint), so computing and reading
+    overlap.
 
     A float32 sample is NaN or infinite when its key's magnitude is at
     least ``0x7f800000``; a NaN in the window makes every output NaN, as in
     the reference. With ``check_record`` the samples outside the window are
     checked as well (a missing A-scan is one with a non-finite sample
-    anywhere), fused into the same pass.
+    anywhere), in the same pass: before the window, the window, after it.
 
 Threshold
     The threshold (float64 %FSH) is turned into the smallest key whose
     %FSH value is at or above it, once per call, so the comparisons in the
-    loop are exact integer comparisons that agree with the reference's
+    loops are exact integer comparisons that agree with the reference's
     float64 comparisons sample for sample.
+
+Compilation
+    The kernels are compiled by numba on first use (a few seconds per
+    sample type) and cached on disk (``cache=True``); they release the GIL
+    (``nogil=True``), so dask threads and the thread split of large
+    in-memory grids run them in parallel.
 """
 
 from __future__ import annotations

@@ -34,7 +34,7 @@ __all__ = ["DEFAULT_CHUNK_BYTES", "convert_to_zarr", "write_zarr", "zarr_chunks"
 
 #: Target size of one chunk (uncompressed): big enough for fast sequential reads, small enough that a few
 #: of them in memory at once stay far below what a laptop has.
-DEFAULT_CHUNK_BYTES = 32 * 2**20
+DEFAULT_CHUNK_BYTES = 16 * 2**20
 
 
 def zarr_chunks(shape: tuple[int, int, int], itemsize: int, *, chunk_scan: int | None = None,
@@ -54,8 +54,8 @@ def zarr_chunks(shape: tuple[int, int, int], itemsize: int, *, chunk_scan: int |
 
     Examples
     --------
-    >>> zarr_chunks((500, 500, 1000), 2)      # 33 scan lines of 500 int16 A-scans of 2 kB: 33 MB
-    (33, 500, 1000)
+    >>> zarr_chunks((500, 500, 1000), 2)      # 16 scan lines of 500 int16 A-scans of 2 kB: 16 MB
+    (16, 500, 1000)
     >>> zarr_chunks((500, 500, 1000), 2, chunk_scan=8)
     (8, 500, 1000)
     """
@@ -113,7 +113,7 @@ def convert_to_zarr(
         The new store, a folder whose name ends in ``.zarr``.
     chunk_scan : int, optional
         Scan lines per chunk (every chunk holds whole A-scans and, when they
-        fit, whole index lines); default about 32 MiB per chunk
+        fit, whole index lines); default about 16 MiB per chunk
         (:func:`zarr_chunks`).
     compress : bool, default True
         Lossless Blosc-zstd (level 1) with byte shuffle and a CRC32C

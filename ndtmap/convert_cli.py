@@ -57,7 +57,7 @@ def register(subparsers: Any) -> None:
     p.add_argument("source", type=Path, help="grid to convert: raw-dump .json sidecar, .nc or .zarr")
     p.add_argument("target", type=Path, help="new Zarr store (a folder named *.zarr)")
     p.add_argument("--chunk-scan", type=int, metavar="N",
-                   help="scan lines per chunk (default: about 32 MiB of samples per chunk)")
+                   help="scan lines per chunk (default: about 16 MiB of samples per chunk)")
     p.add_argument("--no-compress", action="store_true", help="store the chunks uncompressed")
     p.add_argument("--overwrite", action="store_true", help="replace an existing store of that name")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress bar and no summary line")

@@ -54,6 +54,15 @@ Record limits
     ``positions_outside_record`` (for in-memory grids).
 
 Missing A-scans give NaN and ``triggered=False``, never a number.
+
+Implementation
+    All outputs of a gate come from one read of the gated window. The
+    default kernel ('compiled', numba) reads the recorded samples (int16
+    counts or float32) and converts, rectifies and compares each sample on
+    the fly; the numpy kernel ('numpy', :func:`_gate_kernel`) is the
+    reference it is tested against, bit for bit. Choose with
+    ``kernel=`` or the environment variable ``NDTMAP_KERNEL``. Figures:
+    docs/performance.md.
 """
 
 from __future__ import annotations

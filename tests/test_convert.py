@@ -50,10 +50,10 @@ def assert_same_grid(a, b):
 
 def test_chunk_sizes():
     # whole A-scans in every chunk; about the requested bytes
-    assert zarr_chunks((500, 500, 1000), 2) == (33, 500, 1000)
+    assert zarr_chunks((500, 500, 1000), 2) == (16, 500, 1000)
     assert zarr_chunks((500, 500, 1000), 2, chunk_scan=16) == (16, 500, 1000)
     c_scan, c_index, c_time = zarr_chunks((10, 100_000, 4000), 4)  # index lines of 1.6 GB: split along index
-    assert c_time == 4000 and c_scan == 1 and c_index * 4000 * 4 <= 32 * 2**20
+    assert c_time == 4000 and c_scan == 1 and c_index * 4000 * 4 <= 16 * 2**20
 
 
 def test_raw_dump_to_zarr_keeps_every_sample(tmp_path):

@@ -12,6 +12,7 @@ import os
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks"))
@@ -19,6 +20,12 @@ import out_of_core  # noqa: E402
 
 
 def test_mapping_a_300_mb_store_needs_memory_of_a_few_chunks(tmp_path):
+    from ndtmap.gates import Gate, evaluate_gate
+    from ndtmap.grid import make_grid
+
+    tiny = make_grid(np.zeros((1, 1, 64), np.int16), scan_mm=[0.0], index_mm=[0.0], time_us=np.arange(64) * 0.02,
+                     velocity_m_s=5920.0, probe_frequency_mhz=5.0, probe_diameter_mm=10.0, fsh_per_count=0.01)
+    evaluate_gate(tiny, Gate("g", 0.0, 1.0, unit="us"))  # compile the kernel here once (cached for the child)
     report = out_of_core.run(0.3, folder=tmp_path, chunk_scan=2, map_chunk_scan=2)
     m = report["map"]
     chunk_mb = m["dask_chunk_mb"]

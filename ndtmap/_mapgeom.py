@@ -54,9 +54,8 @@ def as_map(name: str, value: Any) -> xr.DataArray:
             )
     if not (np.issubdtype(value.dtype, np.number) or value.dtype == bool) or np.iscomplexobj(value):
         raise ParameterTypeError(f"`{name}` must hold real numbers, has dtype {value.dtype}")
-    out = value.transpose(*MAP_DIMS).astype(np.float64)
-    out = out.copy(data=np.array(out.values, dtype=np.float64))
-    return out
+    out = value.transpose(*MAP_DIMS)
+    return out.copy(data=np.array(out.values, dtype=np.float64))  # one new float64 array
 
 
 def check_same_grid(name: str, value: xr.DataArray, ref_name: str, ref: xr.DataArray) -> None:

@@ -21,6 +21,7 @@ from pathlib import Path
 from typing import Any
 
 from . import CAUTION, __version__
+from .cluster import add_scheduler_argument, with_scheduler
 from .errors import NdtmapError
 
 __all__ = ["main", "build_parser"]
@@ -202,7 +203,8 @@ def _open_valid(path: Path, args: argparse.Namespace) -> Any:
     from .io import open_grid
 
     chunks = {"scan": args.chunk_scan} if getattr(args, "chunk_scan", None) else None
-    return open_grid(path, chunks=chunks)
+    lazy = True if getattr(args, "scheduler", None) else None  # a cluster computes dask-backed grids only
+    return open_grid(path, chunks=chunks, lazy=lazy)
 
 
 def cmd_map(args: argparse.Namespace) -> int:
@@ -366,7 +368,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--chunk-scan", type=int, metavar="N", help="open lazily with N scan lines per chunk")
     p.add_argument("-o", "--output", required=True, metavar="OUT", help="output: .nc, .png, .svg, .pdf or .html")
-    p.set_defaults(func=cmd_map)
+    add_scheduler_argument(p)
+    p.set_defaults(func=with_scheduler(cmd_map))
 
     p = sub.add_parser("indications", help="detect and size indications, print a table")
     p.add_argument("path", type=Path, help="grid file")
@@ -386,11 +389,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--min-area-mm2", type=float, default=0.0, help="drop indications smaller than this")
     p.add_argument("--format", default="table", choices=("table", "csv", "json"))
     p.add_argument("--chunk-scan", type=int, metavar="N", help="open lazily with N scan lines per chunk")
-    p.set_defaults(func=cmd_indications)
+    add_scheduler_argument(p)
+    p.set_defaults(func=with_scheduler(cmd_indications))
 
+    from .convert_cli import register as register_convert
     from .report_cli import register as register_report
 
     register_report(sub)
+    register_convert(sub)
     for register in _EXTRA_COMMANDS:
         register(sub)
     return parser

@@ -54,12 +54,22 @@ Record limits
     ``positions_outside_record`` (for in-memory grids).
 
 Missing A-scans give NaN and ``triggered=False``, never a number.
+
+Implementation
+    All outputs of a gate come from one read of the gated window. The
+    default kernel ('compiled', numba) reads the recorded samples (int16
+    counts or float32) and converts, rectifies and compares each sample on
+    the fly; the numpy kernel ('numpy', :func:`_gate_kernel`) is the
+    reference it is tested against, bit for bit. Choose with
+    ``kernel=`` or the environment variable ``NDTMAP_KERNEL``. Figures:
+    docs/performance.md.
 """
 
 from __future__ import annotations
 
 import json
 import math
+import os
 from collections.abc import Iterable, Mapping
 from dataclasses import asdict, dataclass
 from typing import Any
@@ -77,6 +87,7 @@ from .signal import DETECTIONS, DacCurve, db_re, db_re_dac, detected_signal
 __all__ = [
     "GATE_UNITS",
     "GATE_MODES",
+    "GATE_KERNELS",
     "Gate",
     "evaluate_gate",
     "evaluate_gates",
@@ -86,6 +97,10 @@ __all__ = [
 
 GATE_UNITS = ("mm", "us")
 GATE_MODES = ("peak", "first-crossing")
+#: Implementations of the gate measurement: 'compiled' (numba, the default) and 'numpy' (the reference).
+GATE_KERNELS = ("compiled", "numpy")
+#: Environment variable that chooses the kernel when the `kernel` argument is not given.
+KERNEL_ENV = "NDTMAP_KERNEL"
 _EPS = 1e-6  # fraction of a sample: tolerance of window edges against sample times
 
 
@@ -331,6 +346,73 @@ def _gate_kernel_windows(samples: np.ndarray, i_start: np.ndarray, i_end: np.nda
     return _gate_kernel_blocked(samples, i_start=i_start, i_end=i_end, **kwargs)
 
 
+def _gate_kernel_compiled(samples: np.ndarray, i_start: Any = None, i_end: Any = None, **kwargs: Any) -> Any:
+    """The compiled kernel (:func:`ndtmap._fastgate.gate_kernel`) on the recorded samples of a block.
+
+    `i_start`/`i_end` come either per A-scan (arrays, following gates) or as
+    the keyword arguments ``start``/``end`` (fixed gates).
+    """
+    from . import _fastgate
+
+    start = kwargs.pop("start", None)
+    end = kwargs.pop("end", None)
+    return _fastgate.gate_kernel(samples, start if i_start is None else i_start, end if i_end is None else i_end,
+                                 **kwargs)
+
+
+def _gate_kernel_stacked(samples: np.ndarray, *windows: np.ndarray, **kwargs: Any) -> np.ndarray:
+    """:func:`_gate_kernel_compiled` on one dask block, the four outputs stacked on a last axis of length 4."""
+    if windows:
+        kwargs = dict(kwargs, i_start=windows[0][..., 0], i_end=windows[1][..., 0])
+    return np.stack(_gate_kernel_compiled(samples, **kwargs), axis=-1)
+
+
+def _gate_outputs_compiled(samples: Any, i_start: Any = None, i_end: Any = None, **kwargs: Any) -> Any:
+    """The four outputs for numpy or dask arrays (``apply_ufunc(..., dask='allowed')``).
+
+    A dask array is mapped block by block with the time axis kept (its blocks
+    give a last axis of 4 outputs), not contracted: a contracted core axis
+    makes dask copy every block once more before the kernel sees it.
+    """
+    if not hasattr(samples, "dask"):
+        return _gate_kernel_compiled(samples, i_start, i_end, **kwargs)
+    import dask.array as da
+
+    extra = [] if i_start is None else [da.asarray(i_start)[..., None], da.asarray(i_end)[..., None]]
+    stacked = da.map_blocks(_gate_kernel_stacked, samples, *extra, dtype=np.float64,
+                            chunks=(*samples.chunks[:-1], (4,)), meta=np.empty((0,) * samples.ndim), **kwargs)
+    return tuple(stacked[..., k] for k in range(4))
+
+
+def _threads_for(data: xr.DataArray) -> int:
+    """Threads for the compiled kernel: the usable cores for an in-memory grid, 1 in dask tasks (parallel already)."""
+    if is_lazy(data):
+        return 1
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def _choose_kernel(kernel: str | None) -> str:
+    """'compiled' or 'numpy': the argument, else the environment variable NDTMAP_KERNEL, else 'compiled'."""
+    from . import _fastgate  # imports numba (about half a second), so only when a gate is evaluated
+
+    if kernel is None:
+        env = os.environ.get(KERNEL_ENV, "").strip().lower()
+        if env and env not in GATE_KERNELS:
+            raise ParameterError(
+                f"the environment variable {KERNEL_ENV} must be one of {', '.join(GATE_KERNELS)} or unset, "
+                f"got {env!r}"
+            )
+        choice = env or "compiled"
+        return choice if (choice == "numpy" or _fastgate.HAVE_NUMBA) else "numpy"
+    choice = one_of("kernel", kernel, GATE_KERNELS)
+    if choice == "compiled" and not _fastgate.HAVE_NUMBA:  # pragma: no cover - numba is a dependency
+        raise ParameterError("`kernel`='compiled' needs numba, which cannot be imported; use kernel='numpy'")
+    return choice
+
+
 # --------------------------------------------------------------------------- gate tables and evaluation
 
 
@@ -389,10 +471,12 @@ class _Raw:
 
 
 class _Evaluator:
-    def __init__(self, grid: xr.Dataset, table: dict[str, Gate], detect: str, echo_hold_us: float | None) -> None:
+    def __init__(self, grid: xr.Dataset, table: dict[str, Gate], detect: str, echo_hold_us: float | None,
+                 kernel: str | None = None) -> None:
         self.grid = grid
         self.table = table
         self.detect = one_of("detect", detect, DETECTIONS[:2])
+        self.kernel = _choose_kernel(kernel)
         self.pc = part_constants(grid)
         t = self.pc.time_us
         self.t_first, self.t_last, self.n = float(t[0]), float(t[-1]), t.size
@@ -417,6 +501,39 @@ class _Evaluator:
         if self._missing is None:
             self._missing = missing_ascans(self.grid)
         return self._missing
+
+    @property
+    def reads_record(self) -> bool:
+        """True when the compiled kernel reads the recorded samples directly (rectified detection).
+
+        It then rectifies and scales each sample itself and finds missing
+        A-scans (non-finite samples anywhere in the record) in the same
+        pass, so neither the float32 detection signal nor the missing mask
+        of the whole grid is ever built.
+        """
+        return self.kernel == "compiled" and self.detect == "rectified"
+
+    def ok_mask(self) -> xr.DataArray | None:
+        """Positions whose results stand (not missing), or None when the kernel has already masked them."""
+        if not self.reads_record:
+            return ~self.missing
+        if "missing" in self.grid.data_vars:
+            return ~self.grid["missing"].astype(bool)
+        return None
+
+    def _compiled_input(self) -> tuple[xr.DataArray, dict[str, Any]]:
+        """The array the compiled kernel reads and its per-sample conversion."""
+        if not self.reads_record:
+            sig = whole_time(self.signal)
+            return sig, {"scale": 1.0, "rectify": False, "check_record": False, "threads": _threads_for(sig)}
+        a = self.grid["ascan"]
+        integer = np.issubdtype(a.dtype, np.integer)
+        scale = float(a.attrs.get("fsh_per_count", 1.0)) if integer else 1.0
+        rectify = str(a.attrs.get("signal", "rf")) == "rf"
+        a = a.copy(deep=False)
+        a.attrs = {"units": "%FSH", "long_name": f"A-scan amplitude ({self.detect})"}  # as detected_signal
+        a = whole_time(a)
+        return a, {"scale": scale, "rectify": rectify, "check_record": not integer, "threads": _threads_for(a)}
 
     def relative_us(self, gate: Gate) -> tuple[float, float]:
         if gate.unit == "us":
@@ -487,12 +604,20 @@ class _Evaluator:
             a, b = self.window_us(gate)
             i0 = int(max(0, self._sample(a, np.ceil)))
             i1 = int(min(self.n - 1, self._sample(b, np.floor)))
-            sig = whole_time(self.signal.isel(time=slice(i0, i1 + 1)))
             kwargs["t0_us"] = self.t_first + i0 * dt
-            outs = xr.apply_ufunc(
-                _gate_kernel_blocked, sig, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
-                kwargs=kwargs, dask="parallelized", output_dtypes=[np.float64] * 4,
-            )
+            if self.kernel == "compiled":
+                data, conversion = self._compiled_input()
+                kwargs.update(conversion, base=i0, length=i1 - i0 + 1, start=0.0, end=float(i1 - i0))
+                outs = xr.apply_ufunc(
+                    _gate_outputs_compiled, data, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
+                    kwargs=kwargs, dask="allowed",
+                )
+            else:
+                sig = whole_time(self.signal.isel(time=slice(i0, i1 + 1)))
+                outs = xr.apply_ufunc(
+                    _gate_kernel_blocked, sig, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
+                    kwargs=kwargs, dask="parallelized", output_dtypes=[np.float64] * 4,
+                )
             window = (a, b)
         else:
             a, b = self.relative_us(gate)
@@ -506,13 +631,21 @@ class _Evaluator:
             outside = ref.notnull() & ((f0 < 0) | (f1 > self.n - 1))
             i0 = (f0 - k0).where(~outside)
             i1 = (f1 - k0).where(~outside)
-            sig = whole_time(self.signal.isel(time=slice(k0, k1 + 1)))
             kwargs["t0_us"] = self.t_first + k0 * dt
-            outs = xr.apply_ufunc(
-                _gate_kernel_windows, sig, i0, i1, input_core_dims=[["time"], [], []],
-                output_core_dims=[[], [], [], []], kwargs=kwargs, dask="parallelized",
-                output_dtypes=[np.float64] * 4,
-            )
+            if self.kernel == "compiled":
+                data, conversion = self._compiled_input()
+                kwargs.update(conversion, base=k0, length=k1 - k0 + 1)
+                outs = xr.apply_ufunc(
+                    _gate_outputs_compiled, data, i0, i1, input_core_dims=[["time"], [], []],
+                    output_core_dims=[[], [], [], []], kwargs=kwargs, dask="allowed",
+                )
+            else:
+                sig = whole_time(self.signal.isel(time=slice(k0, k1 + 1)))
+                outs = xr.apply_ufunc(
+                    _gate_kernel_windows, sig, i0, i1, input_core_dims=[["time"], [], []],
+                    output_core_dims=[[], [], [], []], kwargs=kwargs, dask="parallelized",
+                    output_dtypes=[np.float64] * 4,
+                )
             window = (a, b)
         peak, peak_time, cross_time, cross_peak = outs
         if gate.mode == "peak":
@@ -523,9 +656,11 @@ class _Evaluator:
             trig = cross_time.notnull()
             amp = cross_peak.where(trig, peak)
             time = cross_time
-        ok = ~self.missing
-        amp = amp.where(ok)
-        trig = (trig & ok).astype(bool)
+        ok = self.ok_mask()
+        if ok is not None:
+            amp = amp.where(ok)
+            trig = trig & ok
+        trig = trig.astype(bool)
         time = time.where(trig)
         raw = _Raw(amp, trig, time, window, outside, w_start, w_end)
         self._memo[name] = raw
@@ -616,6 +751,7 @@ def evaluate_gate(
     reference_fsh: float | None = None,
     dac: DacCurve | None = None,
     echo_hold_us: float | None = None,
+    kernel: str | None = None,
 ) -> xr.Dataset:
     """Evaluate one gate on every A-scan of a grid.
 
@@ -640,6 +776,11 @@ def evaluate_gate(
     echo_hold_us : float, optional
         First-crossing mode: how long the signal must stay below the
         threshold to end the crossing echo; default one probe period.
+    kernel : {'compiled', 'numpy'}, optional
+        The implementation: 'compiled' (numba; reads the recorded samples
+        once, converting each to %FSH on the fly) or 'numpy' (the
+        reference). Both give the same numbers. Default: the environment
+        variable ``NDTMAP_KERNEL`` if set, else 'compiled'.
 
     Returns
     -------
@@ -669,7 +810,7 @@ def evaluate_gate(
     table = _gate_table(gate, others)
     if not isinstance(depth_from, str):
         raise ParameterTypeError(f"`depth_from` must be text, got {type(depth_from).__name__}")
-    ev = _Evaluator(grid, table, detect, echo_hold_us)
+    ev = _Evaluator(grid, table, detect, echo_hold_us, kernel)
     return ev.dataset(gate.name, depth_from=depth_from, reference_fsh=reference_fsh, dac=dac)
 
 
@@ -682,12 +823,13 @@ def evaluate_gates(
     reference_fsh: float | None = None,
     dac: DacCurve | None = None,
     echo_hold_us: float | None = None,
+    kernel: str | None = None,
 ) -> dict[str, xr.Dataset]:
     """Evaluate several named gates (any number, following each other or not).
 
     Each gate is evaluated once, also when others follow it. Options as in
     :func:`evaluate_gate` (`depth_from` applies to every gate: use 'auto' or
-    'entry' here).
+    'entry' here; `kernel` chooses the implementation).
 
     Returns
     -------
@@ -711,7 +853,7 @@ def evaluate_gates(
         raise ParameterError("`gates` is empty; give at least one Gate")
     grid = check_grid(grid)
     table = _gate_table(gates[0], gates[1:])
-    ev = _Evaluator(grid, table, detect, echo_hold_us)
+    ev = _Evaluator(grid, table, detect, echo_hold_us, kernel)
     return {g.name: ev.dataset(g.name, depth_from=depth_from, reference_fsh=reference_fsh, dac=dac) for g in gates}
 
 

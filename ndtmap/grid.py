@@ -550,7 +550,7 @@ def missing_ascans(ds: xr.Dataset) -> xr.DataArray:
     if np.issubdtype(a.dtype, np.floating):
         bad = (~np.isfinite(a)).any("time")
     else:
-        bad = xr.zeros_like(a.isel(time=0), dtype=bool)
+        bad = xr.zeros_like(a.isel(time=0, drop=True), dtype=bool)
     if "missing" in ds.data_vars:
         bad = bad | ds["missing"].astype(bool)
     bad = bad.rename("missing")

@@ -37,9 +37,10 @@ SECTION_METHODS = ("nearest", "linear")
 _TOL = 1e-9
 
 
-def _signal(grid: xr.Dataset, detect: str) -> xr.DataArray:
+def _signal(grid: xr.Dataset, detect: str, picked: xr.Dataset | None = None) -> xr.DataArray:
+    """The detection signal of the A-scans `picked` from `grid` (default all), with depth and sound path."""
     one_of("detect", detect, DETECTIONS)
-    sig = detected_signal(grid, detect)
+    sig = detected_signal(grid if picked is None else picked, detect)
     return sig.assign_coords(depth=depth_axis(grid), sound_path=sound_path_axis(grid))
 
 
@@ -65,15 +66,19 @@ def _brackets(coord: np.ndarray, q: np.ndarray) -> tuple[np.ndarray, np.ndarray,
     return k, k + 1, frac
 
 
-def _interpolate(sig: xr.DataArray, queries: dict[str, np.ndarray], method: str, dim: str | None) -> xr.DataArray:
-    """Interpolate `sig` at positions along ``scan``/``index`` (linear: bilinear weights; nearest).
+def _interpolate(grid: xr.Dataset, detect: str, queries: dict[str, np.ndarray], method: str,
+                 dim: str | None) -> xr.DataArray:
+    """Interpolate the detection signal at positions along ``scan``/``index`` (linear: bilinear weights; nearest).
 
     Only neighbours with a positive weight take part, so a missing neighbour
-    makes the result missing only where it actually contributes.
+    makes the result missing only where it actually contributes. The
+    neighbouring A-scans are picked from the grid first and only they are
+    detected (rectified, enveloped), so a section costs what its A-scans
+    cost, not what the grid costs.
     """
     corners: list[tuple[dict[str, Any], Any]] = [({}, 1.0)]
     for axis, q in queries.items():
-        lo, hi, frac = _brackets(np.asarray(sig[axis].values, dtype=np.float64), np.asarray(q, dtype=np.float64))
+        lo, hi, frac = _brackets(np.asarray(grid[axis].values, dtype=np.float64), np.asarray(q, dtype=np.float64))
         if method == "nearest":
             pick = np.where(frac > 0.5, hi, lo)
             options = [(pick, np.ones(np.shape(q)))]
@@ -93,7 +98,7 @@ def _interpolate(sig: xr.DataArray, queries: dict[str, np.ndarray], method: str,
         w_da = w if dim is None else xr.DataArray(np.asarray(w), dims=dim)
         if dim is None and float(w) <= 0.0:
             continue
-        part = sig.isel({a: indexer(k) for a, k in idx.items()})
+        part = _signal(grid, detect, grid.isel({a: indexer(k) for a, k in idx.items()}))
         part = part * w_da if dim is None else xr.where(w_da > 0, part * w_da, 0.0)
         out = part if out is None else out + part
     assert out is not None
@@ -105,14 +110,14 @@ def _line(grid: xr.Dataset, axis: str, position_mm: Any, name: str, method: str,
     grid = check_grid(grid)
     one_of("method", method, SECTION_METHODS)
     pos = _check_position(grid, axis, position_mm, name)
-    sig = _signal(grid, detect)
+    one_of("detect", detect, DETECTIONS)
     if method == "nearest" or grid.sizes[axis] == 1:
         c = np.asarray(grid[axis].values, dtype=np.float64)
         k = int(np.argmin(np.abs(c - pos)))  # ties go to the lower position
-        out = sig.isel({axis: k})
+        out = _signal(grid, detect, grid.isel({axis: k}))  # pick the line, then detect only its A-scans
         used = float(c[k])
     else:
-        out = _interpolate(sig, {axis: np.asarray(pos)}, "linear", None).assign_coords({axis: pos})
+        out = _interpolate(grid, detect, {axis: np.asarray(pos)}, "linear", None).assign_coords({axis: pos})
         used = pos
     other = "index" if axis == "scan" else "scan"
     out = out.transpose(other, "time").rename("amplitude_fsh")
@@ -246,11 +251,11 @@ def polyline_section(
     cum = np.concatenate([[0.0], np.cumsum(seg)])
     s_pos = np.interp(dist, cum, pts[:, 0])
     i_pos = np.interp(dist, cum, pts[:, 1])
-    sig = _signal(grid, detect)
+    one_of("detect", detect, DETECTIONS)
     coords = {}
     for axis, values in (("scan", s_pos), ("index", i_pos)):
         coords[axis] = np.clip(values, grid[axis].values[0], grid[axis].values[-1])
-    out = _interpolate(sig, coords, method, "distance")
+    out = _interpolate(grid, detect, coords, method, "distance")
     out = out.assign_coords(
         distance=xr.DataArray(dist, dims="distance", attrs={"units": "mm", "long_name": "distance along the line"}),
         scan=xr.DataArray(coords["scan"], dims="distance", attrs={"units": "mm", "long_name": "scan axis position"}),

@@ -60,11 +60,77 @@ DETECTIONS = ("rectified", "envelope", "none")
 # --------------------------------------------------------------------------- kernels (numpy, along the last axis)
 
 
-def _envelope_kernel(x: np.ndarray) -> np.ndarray:
-    """|analytic signal| along the last axis."""
-    if x.shape[-1] == 0:
-        return x.astype(np.float32)
-    return np.abs(sps.hilbert(np.asarray(x, dtype=np.float64), axis=-1)).astype(np.float32)
+_ENVELOPE_BLOCK_BYTES = 4 * 2**20  # float64 samples per FFT block: a few MiB, whatever the size of the grid
+
+
+def _envelope_kernel(x: np.ndarray, missing: np.ndarray | None = None, *, scale: float | None = None) -> np.ndarray:
+    """|analytic signal| along the last axis, float32, computed over blocks of A-scans.
+
+    The analytic signal is ``a + i H[a]`` as :func:`scipy.signal.hilbert`
+    defines it (one-sided spectrum: DC and, for an even length, the Nyquist
+    bin once, positive frequencies twice). Its imaginary part, the Hilbert
+    transform, is ``irfft(-i sgn(f) rfft(a))`` with sgn 0 at DC and Nyquist,
+    so the envelope ``sqrt(a^2 + H[a]^2)`` needs one real FFT and one
+    inverse real FFT of each block, in float64, and no complex copy of more
+    than one block. Integer counts are converted as
+    :func:`ndtmap.grid.ascan_in_fsh` does (float32 counts times the float32
+    `scale`); A-scans flagged in `missing` (shape ``x.shape[:-1]``) are NaN.
+    """
+    from scipy import fft as sp_fft
+
+    x = np.asarray(x)
+    n = x.shape[-1]
+    out = np.empty(x.shape, dtype=np.float32)
+    if n == 0 or x.size == 0:
+        return out
+    rows = x.reshape(-1, n)
+    flat = out.reshape(-1, n)
+    gone = None if missing is None else np.broadcast_to(np.asarray(missing, dtype=bool), x.shape[:-1]).reshape(-1)
+    sign = np.ones(n // 2 + 1)
+    sign[0] = 0.0
+    if n % 2 == 0:
+        sign[-1] = 0.0
+    turn = -1j * sign  # -i sgn(f) on the one-sided spectrum
+    per = max(1, _ENVELOPE_BLOCK_BYTES // (8 * n))
+    s32 = None if scale is None else np.float32(scale)
+    for r0 in range(0, rows.shape[0], per):
+        block = rows[r0:r0 + per]
+        if s32 is not None:
+            a = block.astype(np.float32) * s32
+        else:
+            a = block.astype(np.float32, copy=False)
+        a = a.astype(np.float64)
+        spectrum = sp_fft.rfft(a, axis=-1)
+        spectrum *= turn
+        h = sp_fft.irfft(spectrum, n=n, axis=-1)
+        np.multiply(a, a, out=a)
+        np.multiply(h, h, out=h)
+        a += h
+        np.sqrt(a, out=a)
+        if gone is not None:
+            a[gone[r0:r0 + per]] = np.nan
+        flat[r0:r0 + per] = a
+    return out
+
+
+def _envelope_of_grid(grid: xr.Dataset) -> xr.DataArray:
+    """The envelope of every A-scan of an RF grid as float32 %FSH, from the recorded samples block by block."""
+    a = whole_time(grid["ascan"])
+    scale = float(a.attrs.get("fsh_per_count", 1.0)) if np.issubdtype(a.dtype, np.integer) else None
+    if "missing" in grid.data_vars:
+        out = xr.apply_ufunc(
+            _envelope_kernel, a, grid["missing"].astype(bool), input_core_dims=[["time"], []],
+            output_core_dims=[["time"]], kwargs={"scale": scale}, dask="parallelized", output_dtypes=[np.float32],
+        )
+    else:
+        out = xr.apply_ufunc(
+            _envelope_kernel, a, input_core_dims=[["time"]], output_core_dims=[["time"]], kwargs={"scale": scale},
+            dask="parallelized", output_dtypes=[np.float32],
+        )
+    out = out.transpose(*a.dims)
+    out.attrs = {k: v for k, v in a.attrs.items() if k != "fsh_per_count"}
+    out.attrs["units"] = "%FSH"
+    return out
 
 
 def _sosfiltfilt_kernel(x: np.ndarray, sos: np.ndarray) -> np.ndarray:
@@ -142,9 +208,11 @@ def envelope(grid: xr.Dataset) -> xr.Dataset:
     """Envelope of RF A-scans: the modulus of the analytic signal.
 
     ``|a + i H[a]|`` with ``H`` the Hilbert transform along ``time``
-    (:func:`scipy.signal.hilbert`, computed with the FFT over the whole
-    A-scan, so echoes very close to the ends of the record see the
-    periodic continuation).
+    (as :func:`scipy.signal.hilbert` defines it, computed with the FFT over
+    the whole A-scan, so echoes very close to the ends of the record see the
+    periodic continuation). The grid is processed in blocks of A-scans (a
+    few MiB at a time, also in memory), so no complex copy of the grid is
+    ever made; on a dask grid chunk by chunk.
 
     Parameters
     ----------
@@ -175,7 +243,7 @@ def envelope(grid: xr.Dataset) -> xr.Dataset:
             "`grid` holds rectified A-scans (signal='rectified'); the envelope needs RF data. "
             "Use the rectified signal as it is"
         )
-    out = _map_time(ascan_in_fsh(grid), _envelope_kernel)
+    out = _envelope_of_grid(grid)
     res = replace_ascan(grid, out, signal="rectified", detection="envelope")
     return with_step(res, "envelope", {"method": "hilbert"}, source=grid)
 
@@ -328,19 +396,19 @@ def detected_signal(grid: xr.Dataset, detect: str = "rectified") -> xr.DataArray
     True
     """
     one_of("detect", detect, DETECTIONS)
-    a = ascan_in_fsh(grid)
     kind = _signal_kind(grid)
     if detect == "none":
-        out = a
+        out = ascan_in_fsh(grid)
     elif detect == "rectified":
+        a = ascan_in_fsh(grid)
         out = abs(a) if kind == "rf" else a
     else:
         if kind != "rf":
             raise ParameterError(
                 "`detect`='envelope' needs RF A-scans but the grid is rectified; use detect='rectified'"
             )
-        out = _map_time(a, _envelope_kernel)
-    out = out.astype(np.float32)
+        out = _envelope_of_grid(grid)
+    out = out.astype(np.float32, copy=False)
     out.attrs = {"units": "%FSH", "long_name": f"A-scan amplitude ({detect})"}
     return out
 

@@ -119,8 +119,16 @@ def crop_to_chain(grid: xr.Dataset, chain: list[Gate], detect: str, missing: xr.
 
 
 def in_slabs(grid: xr.Dataset) -> xr.Dataset:
-    """A large in-memory grid as a dask-backed one in slabs along ``scan`` (whole A-scans per slab)."""
-    if is_lazy(grid):
+    """A large in-memory grid as a dask-backed one in slabs along ``scan`` (whole A-scans per slab).
+
+    Only with the numpy reference kernel: the compiled kernel already shares an in-memory grid
+    between the cores itself, and slabs would only add dask's task overhead.
+    """
+    import os
+
+    from ..gates import KERNEL_ENV
+
+    if is_lazy(grid) or os.environ.get(KERNEL_ENV, "compiled") != "numpy":
         return grid
     n_scan, n_index, n_time = (grid.sizes[d] for d in ("scan", "index", "time"))
     total = n_scan * n_index * n_time

@@ -176,9 +176,10 @@ def _dask_chunks(shape: tuple[int, int, int], itemsize: int, storage: tuple[int,
     n_scan, n_index, n_time = shape
     s_scan, s_index = max(1, min(storage[0], n_scan)), max(1, min(storage[1], n_index))
     blocks = max(1, _DASK_CHUNK_BYTES // max(1, n_time * itemsize * s_scan * s_index))
-    b_index = min(-(-n_index // s_index), blocks)
-    b_scan = min(-(-n_scan // s_scan), max(1, blocks // b_index))
-    return min(n_scan, b_scan * s_scan), min(n_index, b_index * s_index)
+    b_index = max(1, min(-(-n_index // s_index), blocks))
+    b_scan = max(1, min(-(-n_scan // s_scan), max(1, blocks // b_index)))
+    # an empty axis keeps chunks of 1, so that opening works and the validator reports the empty grid
+    return max(1, min(n_scan, b_scan * s_scan)), max(1, min(n_index, b_index * s_index))
 
 
 def _chunk_request(

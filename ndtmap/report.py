@@ -1062,6 +1062,7 @@ def write_report(
     figures: Sequence[str] | None = None,
     formats: Sequence[str] = ("png", "svg"),
     progress: bool = False,
+    lazy: bool | None = None,
 ) -> ReportResult:
     """Write a report folder for one or more scan grids.
 
@@ -1088,6 +1089,11 @@ def write_report(
         has the interactive figures only and says so). Empty: none.
     progress : bool, default False
         Show a progress bar on stderr.
+
+    lazy : bool, optional
+        Open grid files lazily (dask-backed; True when a Dask scheduler is
+        used, so that the cluster computes); default: lazy only when a grid
+        is larger than a share of memory (see :func:`ndtmap.io.open_grid`).
 
     Returns
     -------
@@ -1155,7 +1161,7 @@ def write_report(
         bar = tqdm(items, desc="ndtmap report", unit="part", file=sys.stderr, disable=not progress, leave=False)
         for item in bar:
             try:
-                grid = item.grid if item.grid is not None else open_grid(item.path)
+                grid = item.grid if item.grid is not None else open_grid(item.path, lazy=lazy)
                 if item.grid is not None:
                     from .grid import validate_grid
 

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from . import CAUTION
+from .cluster import add_scheduler_argument, with_scheduler
 
 __all__ = ["register", "cmd_report"]
 
@@ -26,8 +27,9 @@ def cmd_report(args: argparse.Namespace) -> int:
     formats = args.formats if args.formats is not None else ["png", "svg"]
     inputs: Any = args.paths[0] if len(args.paths) == 1 else list(args.paths)
     progress = not args.quiet and sys.stderr.isatty()
+    lazy = True if getattr(args, "scheduler", None) else None  # a cluster computes dask-backed grids only
     result = write_report(inputs, args.output, procedure=args.procedure, figures=args.figures, formats=formats,
-                          progress=progress)
+                          progress=progress, lazy=lazy)
     n_ind = sum(p.n_indications for p in result.parts)
     print(f"wrote {result.index_html}: {len(result.parts)} part(s), {n_ind} indication(s) "
           f"in {result.seconds:.1f} s")
@@ -65,4 +67,5 @@ def register(subparsers: Any) -> None:
     p.add_argument("--formats", nargs="*", choices=REPORT_FORMATS, metavar="FMT",
                    help="static figure files: png svg pdf (default: png svg; none: interactive figures only)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.set_defaults(func=cmd_report)
+    add_scheduler_argument(p)
+    p.set_defaults(func=with_scheduler(cmd_report))

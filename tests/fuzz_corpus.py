@@ -93,6 +93,8 @@ class Case:
             return ["indications", str(path), "--gate-mm", *gate, "--threshold-fsh", threshold, "--format", "json"]
         if command == "report":
             return ["report", str(path), "-o", str(out / "report"), "--formats", "--quiet"]
+        if command == "convert":
+            return ["convert", str(path), str(out / "converted.zarr"), "--quiet"]
         raise ValueError(command)
 
 
@@ -485,12 +487,18 @@ REPORT_CATEGORIES = {"control", "dims", "coords", "units", "attrs", "data", "dat
                      "vars", "file", "sidecar"}
 
 
+#: Categories on which the convert command runs too (its inputs: raw dumps and NetCDF files).
+CONVERT_CATEGORIES = {"control", "file", "sidecar", "random-sidecar", "numeric", "data", "data-ok", "empty"}
+
+
 def all_cases() -> list[Case]:
     cases = list(itertools.chain(grid_cases(), file_cases(), sidecar_cases(), gate_cases(),
                                  random_grid_cases(160), random_sidecar_cases(120)))
     for case in cases:
         if case.category in REPORT_CATEGORIES and "report" not in case.commands:
             case.commands = (*case.commands, "report")
+        if case.category in CONVERT_CATEGORIES and "convert" not in case.commands:
+            case.commands = (*case.commands, "convert")
     names = [c.name for c in cases]
     assert len(set(names)) == len(names), "case names must be unique"
     return cases

@@ -120,6 +120,8 @@ def test_case_ends_cleanly(case, tmp_path):
                 assert (out / "m.nc").exists()
             if command == "report":
                 assert (out / "report" / "index.html").exists()
+            if command == "convert":
+                assert (out / "converted.zarr").is_dir()
         elif code == 1 and command == "report":
             outcome = "partial batch"  # the report names the failed input in its summary
         elif code == 1 and command == "info":

@@ -1170,32 +1170,18 @@ def simulate_scan(
                     )
             for refl in planars:
                 above = [s for s in reflectors if s is not refl and s.depth_mm < refl.depth_mm]
-                _extended_layer(
-                    hist,
-                    px,
-                    py,
-                    model,
-                    covers=refl.covers,
-                    bbox=refl.bbox,
-                    depth_fn=lambda x, y, d=refl.depth_mm: d,
-                    z_range=(refl.depth_mm, refl.depth_mm),
-                    gain=c_fsh * transmission * refl.reflectivity,
-                    shadowers=above,
-                )
-                if repeat_echoes:
+                layer = {
+                    "covers": refl.covers,
+                    "bbox": refl.bbox,
+                    "depth_fn": lambda x, y, d=refl.depth_mm: d,
+                    "z_range": (refl.depth_mm, refl.depth_mm),
+                    "shadowers": above,
+                }
+                _extended_layer(hist, px, py, model, gain=c_fsh * transmission * refl.reflectivity, **layer)
+                if repeat_echoes:  # reflector - front surface - reflector: the image at twice the depth
                     _extended_layer(
-                        hist,
-                        px,
-                        py,
-                        model,
-                        covers=refl.covers,
-                        bbox=refl.bbox,
-                        depth_fn=lambda x, y, d=refl.depth_mm: d,
-                        z_range=(refl.depth_mm, refl.depth_mm),
-                        gain=c_fsh * transmission * refl.reflectivity**2 * (-front_r),
-                        shadowers=above,
-                        multiple=2,
-                        covers_fraction=0.5,
+                        hist, px, py, model, gain=c_fsh * transmission * refl.reflectivity**2 * (-front_r),
+                        multiple=2, covers_fraction=0.5, **layer,
                     )
         for refl in compact:
             above = [s for s in planars if s.depth_mm < refl.depth_mm]

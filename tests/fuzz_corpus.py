@@ -197,7 +197,7 @@ def grid_cases() -> Iterator[Case]:
             yield Case(f"units-{name}-{units!r}", "units", _nc(dataset(coord_units={name: units})))
     for units in (None, "V", "counts", "dB"):
         yield Case(f"units-ascan-{units!r}", "units", _nc(dataset(ascan_attrs={"units": units})))
-    for sig in (None, "video", "RF", 3):
+    for sig in (None, "log", "RF", 3):
         yield Case(f"signal-{sig!r}", "attrs", _nc(dataset(ascan_attrs={"signal": sig})))
     # required and optional attributes: missing, absurd, wrong type
     bad_values: dict[str, list[Any]] = {

@@ -107,8 +107,8 @@ def test_make_grid_rejects_bad_shapes_and_signal():
         make_grid(np.zeros((3, 4)), scan_mm=[0, 1, 2], index_mm=[0], time_us=t, **kw)
     with pytest.raises(GridError, match=r"does not match the coordinates \(scan=2, index=1, time=4\)"):
         make_grid(np.zeros((3, 1, 4)), scan_mm=[0, 1], index_mm=[0], time_us=t, **kw)
-    with pytest.raises(ParameterError, match=r"`signal` must be one of .*got 'video'"):
-        make_grid(np.zeros((1, 1, 4)), scan_mm=[0], index_mm=[0], time_us=t, signal="video", **kw)
+    with pytest.raises(ParameterError, match=r"`signal` must be one of .*got 'log'"):
+        make_grid(np.zeros((1, 1, 4)), scan_mm=[0], index_mm=[0], time_us=t, signal="log", **kw)
 
 
 def test_make_grid_reports_bad_attributes_as_grid_error():
@@ -293,8 +293,8 @@ def test_allowed_dtypes(dtype):
 
 def test_bad_signal_and_scale():
     g = plate_grid()
-    g["ascan"].attrs["signal"] = "video"
-    assert only_problem(g) == "`ascan` attribute `signal` must be 'rf' or 'rectified', got 'video'"
+    g["ascan"].attrs["signal"] = "log"
+    assert only_problem(g) == "`ascan` attribute `signal` must be 'rf' or 'rectified', got 'log'"
     g16 = plate_grid()
     g16["ascan"] = g16["ascan"].astype(np.int16)
     g16["ascan"].attrs["fsh_per_count"] = 0.0

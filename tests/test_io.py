@@ -867,7 +867,7 @@ def test_sidecar_lists_every_structural_problem(tmp_path):
         byte_ofset=16,  # a typo
         shape={"scan": 3, "index": 0, "time": 5.0},
         axis_order=["scan", "time"],
-        signal="video",
+        signal="log",
         fsh_per_count=-1,
     )
     with pytest.raises(FileFormatError) as info:
@@ -879,7 +879,7 @@ def test_sidecar_lists_every_structural_problem(tmp_path):
         "`version` 2 is newer than this ndtmap reads (1)",
         "`shape` entries must be whole numbers > 0, got {'index': 0, 'time': 5.0}",
         "`axis_order` must list 'scan', 'index' and 'time' once each",
-        "`signal` must be 'rf' or 'rectified', got 'video'",
+        "`signal` must be 'rf' or 'rectified', got 'log'",
         "`fsh_per_count` must be a number > 0 (%FSH per count), got -1",
     ):
         assert part in message

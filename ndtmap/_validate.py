@@ -11,19 +11,15 @@ from collections.abc import Iterable
 from numbers import Real
 from typing import Any
 
+import numpy as np
+
 from .errors import ParameterError, ParameterTypeError
 
 
 def _as_float(name: str, value: Any) -> float:
     if isinstance(value, bool) or not isinstance(value, Real | str):
-        # numpy scalars are Real; str is handled below for a clear message
-        try:
-            import numpy as np
-
-            if isinstance(value, np.generic) and np.issubdtype(type(value), np.number):
-                return float(value)
-        except ImportError:  # pragma: no cover - numpy is a dependency
-            pass
+        if isinstance(value, np.generic) and np.issubdtype(type(value), np.number):
+            return float(value)
         raise ParameterTypeError(f"`{name}` must be a number, got {value!r} ({type(value).__name__})")
     if isinstance(value, str):
         raise ParameterTypeError(f"`{name}` must be a number, got the string {value!r}")
@@ -78,18 +74,10 @@ def float_in_range(
 
 def positive_int(name: str, value: Any) -> int:
     """Return `value` as an int > 0 or raise naming `name`."""
+    if isinstance(value, np.integer):
+        value = int(value)
     if isinstance(value, bool) or not isinstance(value, int):
-        try:
-            import numpy as np
-
-            if isinstance(value, np.integer):
-                value = int(value)
-            else:
-                raise TypeError
-        except TypeError:
-            raise ParameterTypeError(
-                f"`{name}` must be a whole number, got {value!r} ({type(value).__name__})"
-            ) from None
+        raise ParameterTypeError(f"`{name}` must be a whole number, got {value!r} ({type(value).__name__})")
     if value <= 0:
         raise ParameterError(f"`{name}` must be greater than 0, got {value!r}")
     return int(value)

@@ -89,6 +89,18 @@ def _progress_bar(total: int | None, enabled: bool, desc: str) -> Any:
     return tqdm(total=total, disable=not enabled, file=sys.stderr, desc=desc, unit="chunk", leave=False)
 
 
+def _check_options(dst: Path, *, chunk_scan: Any, compress: Any, overwrite: Any, progress: Any) -> None:
+    """The checks common to :func:`convert_to_zarr` and :func:`write_zarr`."""
+    for name, flag in (("compress", compress), ("overwrite", overwrite), ("progress", progress)):
+        if not isinstance(flag, bool):
+            raise ParameterTypeError(f"`{name}` must be True or False, got {flag!r}")
+    if chunk_scan is not None and (isinstance(chunk_scan, bool) or not isinstance(chunk_scan, int | np.integer)
+                                   or chunk_scan < 1):
+        raise ParameterError(f"`chunk_scan` must be a whole number of scan lines >= 1, got {chunk_scan!r}")
+    if dst.suffix.lower() != ".zarr":
+        raise ParameterError(f"`target` must be a Zarr store named *.zarr, got {dst.name!r}")
+
+
 def convert_to_zarr(
     source: str | os.PathLike,
     target: str | os.PathLike,
@@ -157,14 +169,7 @@ def convert_to_zarr(
     """
     src = _io._as_path("source", source)
     dst = _io._as_path("target", target)
-    for name, flag in (("compress", compress), ("overwrite", overwrite), ("progress", progress)):
-        if not isinstance(flag, bool):
-            raise ParameterTypeError(f"`{name}` must be True or False, got {flag!r}")
-    if chunk_scan is not None and (isinstance(chunk_scan, bool) or not isinstance(chunk_scan, int | np.integer)
-                                   or chunk_scan < 1):
-        raise ParameterError(f"`chunk_scan` must be a whole number of scan lines >= 1, got {chunk_scan!r}")
-    if dst.suffix.lower() != ".zarr":
-        raise ParameterError(f"`target` must be a Zarr store named *.zarr, got {dst.name!r}")
+    _check_options(dst, chunk_scan=chunk_scan, compress=compress, overwrite=overwrite, progress=progress)
     if dst.exists() and src.exists() and dst.resolve() == src.resolve():
         raise FileFormatError(f"refusing to convert {src} onto itself; choose another `target`")
     peek = _io.open_grid(src, lazy=True)
@@ -216,14 +221,7 @@ def write_zarr(
         `target`.
     """
     dst = _io._as_path("target", target)
-    for name, flag in (("compress", compress), ("overwrite", overwrite), ("progress", progress)):
-        if not isinstance(flag, bool):
-            raise ParameterTypeError(f"`{name}` must be True or False, got {flag!r}")
-    if chunk_scan is not None and (isinstance(chunk_scan, bool) or not isinstance(chunk_scan, int | np.integer)
-                                   or chunk_scan < 1):
-        raise ParameterError(f"`chunk_scan` must be a whole number of scan lines >= 1, got {chunk_scan!r}")
-    if dst.suffix.lower() != ".zarr":
-        raise ParameterError(f"`target` must be a Zarr store named *.zarr, got {dst.name!r}")
+    _check_options(dst, chunk_scan=chunk_scan, compress=compress, overwrite=overwrite, progress=progress)
     validate_grid(grid, check_values=False)
     shape = tuple(int(grid.sizes[d]) for d in DIMS)
     c_scan, c_index, _ = zarr_chunks(shape, grid["ascan"].dtype.itemsize,

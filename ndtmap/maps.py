@@ -30,7 +30,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from ._gridops import check_grid, is_lazy, netcdf_safe, result_attrs
+from ._gridops import check_grid, is_lazy, netcdf_safe, part_constants, result_attrs
 from ._validate import interval, one_of, positive_float
 from .errors import ParameterError, ParameterTypeError
 from .gates import Gate, _Evaluator, _gate_table, evaluate_gate
@@ -73,6 +73,29 @@ def _finish(values: xr.DataArray, grid: xr.Dataset, *, name: str, units: str, lo
     return with_step(out, step, params, source=source)
 
 
+def _gate_result(grid: xr.Dataset, gate: Gate, result: xr.Dataset | None, need: str, detect: str,
+                 **evaluate: Any) -> xr.Dataset:
+    """The gate's result: `result` when given (checked to be this gate's), else a new evaluation.
+
+    Passing the result of :func:`ndtmap.gates.evaluate_gates` lets several maps of one gate share a
+    single pass over the A-scans.
+    """
+    if result is None:
+        return evaluate_gate(grid, gate, detect=detect, **evaluate)
+    if not isinstance(result, xr.Dataset) or result.attrs.get("gate") != json.dumps(gate.to_dict()):
+        raise ParameterError(
+            f"`result` must be the evaluate_gate result of gate {gate.name!r} itself (same definition); "
+            "leave it out to evaluate the gate here"
+        )
+    if result.attrs.get("detect") != detect:
+        raise ParameterError(
+            f"`result` was evaluated with detect={result.attrs.get('detect')!r}, not {detect!r}"
+        )
+    if need not in result.data_vars:
+        raise ParameterError(f"`result` holds no `{need}`; evaluate the gate with the options this map needs")
+    return result
+
+
 def amplitude_map(
     grid: xr.Dataset,
     gate: Gate,
@@ -81,6 +104,7 @@ def amplitude_map(
     detect: str = "rectified",
     reference_fsh: float | None = None,
     dac: DacCurve | None = None,
+    result: xr.Dataset | None = None,
 ) -> xr.DataArray:
     """C-scan of the peak amplitude in a gate.
 
@@ -97,6 +121,9 @@ def amplitude_map(
     dac : DacCurve, optional
         Give the map in dB re the DAC at the event depth (NaN where the gate
         did not trigger, since the depth is then unknown).
+    result : xarray.Dataset, optional
+        This gate's :func:`ndtmap.gates.evaluate_gate` (or ``evaluate_gates``)
+        result, to share one pass over the A-scans between several maps.
 
     Returns
     -------
@@ -113,7 +140,12 @@ def amplitude_map(
     """
     if reference_fsh is not None and dac is not None:
         raise ParameterError("give either `reference_fsh` or `dac`, not both")
-    res = evaluate_gate(grid, gate, others=others, detect=detect, reference_fsh=reference_fsh, dac=dac)
+    need = "amplitude_fsh"
+    if reference_fsh is not None:
+        need = "amplitude_db"
+    elif dac is not None:
+        need = "amplitude_db_re_dac"
+    res = _gate_result(grid, gate, result, need, detect, others=others, reference_fsh=reference_fsh, dac=dac)
     params = {"gate": gate.to_dict(), "detect": detect, "reference_fsh": reference_fsh,
               "dac": dac.to_dict() if dac is not None else None}
     if reference_fsh is not None:
@@ -137,6 +169,7 @@ def depth_map(
     detect: str = "rectified",
     depth_from: str = "auto",
     fold: bool = False,
+    result: xr.Dataset | None = None,
 ) -> xr.DataArray:
     """C-scan of the depth of the gate event, mm (NaN where not triggered or missing).
 
@@ -149,6 +182,8 @@ def depth_map(
         and the surface (needs ``part_thickness_mm``); else the unfolded
         depth ``s cos(theta)`` (a repeat echo of a reflector at depth z
         shows at 2 z).
+    result : xarray.Dataset, optional
+        This gate's evaluation, as for :func:`amplitude_map`.
 
     Returns
     -------
@@ -161,7 +196,11 @@ def depth_map(
     >>> m.attrs["units"], round(float(m[0, 0]), 2)
     ('mm', 11.84)
     """
-    res = evaluate_gate(grid, gate, others=others, detect=detect, depth_from=depth_from)
+    res = _gate_result(grid, gate, result, "depth_mm", detect, others=others, depth_from=depth_from)
+    if result is not None and depth_from != "auto" and res.attrs.get("depth_reference") != depth_from:
+        raise ParameterError(
+            f"`result` measures depth from {res.attrs.get('depth_reference')!r}, not {depth_from!r}"
+        )
     depth = res["depth_mm"]
     extra: dict[str, Any] = {}
     if fold:
@@ -186,6 +225,7 @@ def thickness_map(
     method: str = "first-echo",
     others: Iterable[Gate] | Mapping[str, Gate] = (),
     detect: str = "rectified",
+    result: xr.Dataset | None = None,
 ) -> xr.DataArray:
     """C-scan of the wall thickness, mm.
 
@@ -216,6 +256,9 @@ def thickness_map(
     method : {'first-echo', 'echo-to-echo', 'interface-to-backwall'}
     others : gates followed by either gate.
     detect : {'rectified', 'envelope'}, default 'rectified'
+    result : xarray.Dataset, optional
+        For 'first-echo': the back-wall gate's evaluation, as for
+        :func:`amplitude_map` (no second pass over the A-scans).
 
     Returns
     -------
@@ -243,19 +286,27 @@ def thickness_map(
             f"method {method!r} needs `reference_gate` (a Gate on the "
             f"{'first back-wall' if method == 'echo-to-echo' else 'interface'} echo), got {reference_gate!r}"
         )
-    extra = [] if reference_gate is None else [reference_gate]
-    others_list = list(others.values()) if isinstance(others, Mapping) else list(others)
-    table = _gate_table(backwall_gate, [*extra, *others_list])
-    ev = _Evaluator(grid, table, detect, None)
-    bw = ev.evaluate(backwall_gate.name)
-    pc = ev.pc
-    if reference_gate is None:
-        t_ref: Any = pc.zero_offset_us
+    if result is not None:
+        if method != "first-echo":
+            raise ParameterError("`result` can stand in only for method 'first-echo'; leave it out")
+        res = _gate_result(grid, backwall_gate, result, "time_us", detect)
+        pc = part_constants(grid)
+        thickness = pc.mm_per_us * (res["time_us"] - pc.zero_offset_us) * pc.cos_theta
+        thickness = thickness.where(thickness > 0)
     else:
-        t_ref = ev.evaluate(reference_gate.name).time
-    thickness = pc.mm_per_us * (bw.time - t_ref) * pc.cos_theta
-    thickness = thickness.where(thickness > 0)
-    res = ev.dataset(backwall_gate.name, depth_from="entry")
+        extra = [] if reference_gate is None else [reference_gate]
+        others_list = list(others.values()) if isinstance(others, Mapping) else list(others)
+        table = _gate_table(backwall_gate, [*extra, *others_list])
+        ev = _Evaluator(grid, table, detect, None)
+        bw = ev.evaluate(backwall_gate.name)
+        pc = ev.pc
+        if reference_gate is None:
+            t_ref: Any = pc.zero_offset_us
+        else:
+            t_ref = ev.evaluate(reference_gate.name).time
+        thickness = pc.mm_per_us * (bw.time - t_ref) * pc.cos_theta
+        thickness = thickness.where(thickness > 0)
+        res = ev.dataset(backwall_gate.name, depth_from="entry")
     params = {"method": method, "backwall_gate": backwall_gate.to_dict(),
               "reference_gate": reference_gate.to_dict() if reference_gate is not None else None, "detect": detect}
     ref_attrs = {"reference_gate": json.dumps(reference_gate.to_dict())} if reference_gate is not None else {}
@@ -292,6 +343,7 @@ def backwall_loss_map(
     others: Iterable[Gate] | Mapping[str, Gate] = (),
     detect: str = "rectified",
     floor_fsh: float = 0.1,
+    result: xr.Dataset | None = None,
 ) -> xr.DataArray:
     """C-scan of the back-wall echo loss in dB (positive where the echo is weaker than nominal).
 
@@ -317,6 +369,8 @@ def backwall_loss_map(
         As for :func:`amplitude_map`.
     floor_fsh : float, default 0.1
         Least amplitude used in the ratio, %FSH.
+    result : xarray.Dataset, optional
+        The back-wall gate's evaluation, as for :func:`amplitude_map`.
 
     Returns
     -------
@@ -337,7 +391,7 @@ def backwall_loss_map(
     floor = positive_float("floor_fsh", floor_fsh)
     if nominal_fsh is not None and sound_region is not None:
         raise ParameterError("give either `nominal_fsh` or `sound_region`, not both")
-    res = evaluate_gate(grid, backwall_gate, others=others, detect=detect)
+    res = _gate_result(grid, backwall_gate, result, "amplitude_fsh", detect, others=others)
     amp = res["amplitude_fsh"]
     if nominal_fsh is not None:
         nominal = positive_float("nominal_fsh", nominal_fsh)

@@ -661,6 +661,7 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         problems of the procedure on this grid.
     """
     from .calibration import calibrate
+    from .gates import evaluate_gates
     from .maps import amplitude_map, backwall_loss_map, depth_map, thickness_map
     from .rules import load_rules, screen
     from .sizing_table import scanned_area_mm2, size_indications
@@ -673,8 +674,17 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
     gates = _gate_map(grid, proc)
     det = gates[proc.detection_gate]
     maps: dict[str, xr.DataArray] = {}
-    maps["amplitude"] = amplitude_map(grid, det, others=gates, detect=proc.detect).compute()
-    maps["depth"] = depth_map(grid, det, others=gates, detect=proc.detect).compute()
+    # one pass over the A-scans per gate: every map of a gate is made from the same evaluation
+    wanted = [det.name] if proc.backwall_gate is None else [det.name, proc.backwall_gate]
+    chain: list[str] = []
+    for name in wanted:  # the wanted gates and the gates they follow
+        while name is not None and name not in chain:
+            chain.append(name)
+            name = gates[name].follows
+    results = {name: r.compute() for name, r in
+               evaluate_gates(grid, [gates[n] for n in chain], detect=proc.detect).items()}
+    maps["amplitude"] = amplitude_map(grid, det, detect=proc.detect, result=results[det.name])
+    maps["depth"] = depth_map(grid, det, detect=proc.detect, result=results[det.name])
     notes: list[str] = []
     cautions = [CAUTION]
     if proc.first_look:
@@ -685,16 +695,16 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
     backwall_amp = backwall_depth = loss = None
     if proc.backwall_gate is not None:
         bw = gates[proc.backwall_gate]
-        backwall_amp = amplitude_map(grid, bw, others=gates, detect=proc.detect).compute()
-        backwall_depth = depth_map(grid, bw, others=gates, detect=proc.detect).compute()
-        loss = backwall_loss_map(
-            grid, bw, nominal_fsh=proc.backwall_nominal_fsh, others=gates, detect=proc.detect
-        ).compute()
+        bw_result = results[bw.name]
+        backwall_amp = amplitude_map(grid, bw, detect=proc.detect, result=bw_result)
+        backwall_depth = depth_map(grid, bw, detect=proc.detect, result=bw_result)
+        loss = backwall_loss_map(grid, bw, nominal_fsh=proc.backwall_nominal_fsh, detect=proc.detect,
+                                 result=bw_result)
         maps["backwall_amplitude"] = backwall_amp
         maps["backwall_depth"] = backwall_depth
         maps["backwall_loss"] = loss
         try:
-            maps["thickness"] = thickness_map(grid, bw, others=gates, detect=proc.detect).compute()
+            maps["thickness"] = thickness_map(grid, bw, detect=proc.detect, result=bw_result)
         except NdtmapError as exc:  # e.g. an immersion grid without an interface gate
             notes.append(f"no thickness map: {exc}")
     rules = load_rules(proc.rules_path()) if proc.rules is not None else None
@@ -703,9 +713,8 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         kwargs["threshold_fsh"] = proc.threshold_fsh
     else:
         kwargs["threshold_db"] = proc.threshold_db
-        kwargs["reference"] = (
-            float(np.nanmedian(backwall_amp.values)) if proc.reference == "backwall" else proc.reference
-        )
+        # the same nominal back-wall level as the back-wall-loss map (the procedure's, else the median)
+        kwargs["reference"] = float(loss.attrs["nominal_fsh"]) if proc.reference == "backwall" else proc.reference
     if backwall_amp is not None:
         kwargs["backwall"] = backwall_amp
         kwargs["backwall_depth_mm"] = backwall_depth

@@ -577,6 +577,7 @@ class _Model:
     pad: float  # time margin for pulse tails
     sin_t: float
     cos_t: float
+    x_ref: float = 0.0  # first scan position: the water path is `water_path_mm` there
     s_table_z: np.ndarray = field(default_factory=lambda: np.zeros(0))
     s_table_v: np.ndarray = field(default_factory=lambda: np.zeros(0))
     corr_z: np.ndarray = field(default_factory=lambda: np.zeros(0))
@@ -595,8 +596,6 @@ class _Model:
     def water_path_at(self, x: np.ndarray) -> np.ndarray:
         w0 = float(self.part.water_path_mm or 0.0)
         return w0 + (x - self.x_ref) * math.tan(math.radians(self.part.surface_tilt_deg))
-
-    x_ref: float = 0.0
 
     def s_law(self, distance: np.ndarray) -> np.ndarray:
         """Band-averaged <p**2>/(pi a**2): the echo per unit area on the axis."""

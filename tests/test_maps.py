@@ -229,3 +229,24 @@ def test_missing_ascans_are_missing_in_every_map(kind, backend):
         mask[i, j] = True
     assert np.isnan(m[mask]).all()
     assert np.isfinite(m[~mask]).all()
+
+
+def test_maps_share_one_gate_evaluation(backend):
+    # maps made from one evaluate_gates result equal maps that each evaluate the gate themselves
+    from ndtmap.gates import evaluate_gates
+
+    g = to_backend(with_missing(plate_grid(11.5), [(1, 0)]), backend)
+    bw = Gate("bw", 8.0, 14.0, threshold_fsh=10.0)
+    shared = evaluate_gates(g, [bw])["bw"]
+    for own, from_shared in (
+        (amplitude_map(g, bw), amplitude_map(g, bw, result=shared)),
+        (depth_map(g, bw), depth_map(g, bw, result=shared)),
+        (thickness_map(g, bw), thickness_map(g, bw, result=shared)),
+        (backwall_loss_map(g, bw, nominal_fsh=80.0), backwall_loss_map(g, bw, nominal_fsh=80.0, result=shared)),
+    ):
+        xr.testing.assert_equal(own.compute(), from_shared.compute())
+        assert own.attrs["units"] == from_shared.attrs["units"]
+    with pytest.raises(ParameterError, match="result of gate 'other'"):
+        amplitude_map(g, Gate("other", 8.0, 14.0), result=shared)
+    with pytest.raises(ParameterError, match="only for method 'first-echo'"):
+        thickness_map(g, bw, reference_gate=bw, method="echo-to-echo", result=shared)

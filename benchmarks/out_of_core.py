@@ -7,8 +7,8 @@ Steps, each in its own child process so that its peak resident memory (``ru_maxr
 
 1. *build*: a seeded synthetic int16 plate scan (back-wall echo, corrosion patches, laminar reflectors as tone
    bursts, noise; ``benchmarks/synthetic.py``) of the requested size is written to a Zarr v3 store with
-   :func:`ndtmap.convert.write_zarr` (the writer of ``ndtmap convert``), one chunk of whole A-scans at a time;
-   the grid never exists in memory (``--writer save_grid`` uses :func:`ndtmap.io.save_grid` instead);
+   :func:`ndtmap.io.convert.write_zarr` (the writer of ``ndtmap convert``), one chunk of whole A-scans at a time;
+   the grid never exists in memory (``--writer save_grid`` uses :func:`ndtmap.io.grid_files.save_grid` instead);
 2. *map*: the store is opened lazily and ``amplitude_map``, ``depth_map`` and ``backwall_loss_map`` (nominal
    level from the data) are computed on dask's local threads.
 
@@ -81,8 +81,7 @@ def child_build(store: Path, n_scan: int, n_index: int, n_time: int, chunk_scan:
     sys.path[:0] = [str(HERE), str(ROOT)]
     from synthetic import synthetic_grid
 
-    from ndtmap.convert import write_zarr
-    from ndtmap.io import save_grid
+    from ndtmap.io import save_grid, write_zarr
 
     base = _rss_mb()
     t0 = time.perf_counter()
@@ -101,7 +100,7 @@ def child_map(store: Path, chunk_scan: int | None) -> dict:
 
     from ndtmap.gates import Gate
     from ndtmap.io import open_grid
-    from ndtmap.maps import amplitude_map, backwall_loss_map, depth_map
+    from ndtmap.scans import amplitude_map, backwall_loss_map, depth_map
 
     chunks = {"scan": chunk_scan} if chunk_scan else None
     grid = open_grid(store, chunks=chunks, lazy=True)
@@ -147,7 +146,7 @@ def run(size_gb: float, *, folder: Path | None = None, chunk_scan: int | None = 
     n_scan, n_index, n_time = shape_for(size_gb, n_index, n_time)
     if chunk_scan is None:  # the chunks `ndtmap convert` would choose
         sys.path[:0] = [str(ROOT)]
-        from ndtmap.convert import zarr_chunks
+        from ndtmap.io import zarr_chunks
 
         chunk_scan = zarr_chunks((n_scan, n_index, n_time), 2)[0]
     folder = Path(folder or tempfile.gettempdir())

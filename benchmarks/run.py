@@ -37,11 +37,14 @@ sys.path[:0] = [str(HERE), str(HERE.parent)]
 from synthetic import DT_US, FSH_PER_COUNT, synthetic_block  # noqa: E402
 
 import ndtmap  # noqa: E402
-from ndtmap import _fastgate  # noqa: E402
 from ndtmap.gates import Gate, evaluate_gate, gate_window_us  # noqa: E402
+from ndtmap.gates import _compiled as _fastgate  # noqa: E402
 from ndtmap.grid import make_grid  # noqa: E402
-from ndtmap.maps import amplitude_map, depth_map  # noqa: E402
-from ndtmap.sections import b_scan  # noqa: E402
+from ndtmap.scans import (  # noqa: E402
+    amplitude_map,
+    b_scan,  # noqa: E402
+    depth_map,
+)
 from ndtmap.signal import envelope  # noqa: E402
 
 ROOFS = {
@@ -254,7 +257,7 @@ def bench_bscan(g16: Any, repeat: int, results: dict) -> None:
 def bench_sizing(g16: Any, repeat: int, results: dict) -> None:
     from scipy import ndimage
 
-    from ndtmap.sizing_table import size_indications
+    from ndtmap.indications import size_indications
 
     flaw = Gate("flaw", 3.0, 23.0, threshold_fsh=20.0)
     amp = amplitude_map(g16, flaw)
@@ -269,8 +272,7 @@ def bench_sizing(g16: Any, repeat: int, results: dict) -> None:
 
 
 def bench_convert(g16: Any, repeat: int, results: dict, folder: Path) -> None:
-    from ndtmap.convert import convert_to_zarr
-    from ndtmap.io import export_raw, import_raw
+    from ndtmap.io import convert_to_zarr, export_raw, import_raw
 
     work = Path(tempfile.mkdtemp(prefix="ndtmap-bench-", dir=folder))
     try:

@@ -18,7 +18,7 @@ each edit a new gate end so the gate cache never answers):
 * the baseline: ``np.abs(window).max(-1)`` over the same gate window of the same array, the least
   work any gate needs;
 * for comparison: the gate on the cut record without the parallel slabs, and once on the whole
-  record (what ``ndtmap.maps.amplitude_map`` does).
+  record (what ``ndtmap.scans.maps.amplitude_map`` does).
 
 The machine has 2 cores; other work on it shows in the numbers.
 """
@@ -150,7 +150,7 @@ def main() -> None:
     if not args.no_whole:
         t0 = time.perf_counter()
         evaluate_gate(grid, state.gate("flaw"))
-        print(f"same, whole record (as ndtmap.maps): {time.perf_counter() - t0:8.2f} s")
+        print(f"same, whole record (as ndtmap.scans.maps): {time.perf_counter() - t0:8.2f} s")
 
     # figure update: build the plan figure, copy it into a FigureWidget
     plan = go.FigureWidget(plots.plan_figure(state.map(), point=state.point))

@@ -1,7 +1,7 @@
 """ndtmap: an open workbench for encoded pulse-echo ultrasonic scans.
 
 A scan grid (an :class:`xarray.Dataset` of A-scans on scan and index
-positions, see :mod:`ndtmap.grid`) goes in; gates, C-scan maps, B- and
+positions, see :mod:`ndtmap.grid.schema`) goes in; gates, C-scan maps, B- and
 D-scan sections, sized indications and reports come out.
 
 Results of ndtmap are inputs to an engineering assessment. They must be
@@ -10,8 +10,8 @@ employer's scheme) and judged under the applicable code, contract and
 regulations; ndtmap makes no acceptance decision.
 """
 
-from ._version import __version__
-from .errors import (
+from ndtmap._version import __version__
+from ndtmap.errors import (
     CalibrationError,
     FileFormatError,
     GateError,
@@ -22,7 +22,8 @@ from .errors import (
     ProcedureError,
     SizingError,
 )
-from .grid import (
+from ndtmap.grid.provenance import read_provenance, with_step
+from ndtmap.grid.schema import (
     DIMS,
     ascan_in_fsh,
     canonical_grid,
@@ -31,9 +32,8 @@ from .grid import (
     missing_ascans,
     validate_grid,
 )
-from .io import export_raw, import_raw, open_grid, save_grid
-from .provenance import read_provenance, with_step
-from .sizing_table import size_indications
+from ndtmap.indications.pipeline import size_indications
+from ndtmap.io.grid_files import export_raw, import_raw, open_grid, save_grid
 
 CAUTION = (
     "Results must be reviewed by qualified personnel (e.g. certified to ISO 9712 or the "

@@ -35,7 +35,7 @@ from contextlib import contextmanager
 from typing import Any
 from urllib.parse import urlsplit
 
-from .errors import ParameterError, ParameterTypeError
+from ndtmap.errors import ParameterError, ParameterTypeError
 
 __all__ = ["SCHEDULER_SCHEMES", "check_scheduler_address", "use_scheduler", "add_scheduler_argument",
            "with_scheduler"]

@@ -1,7 +1,7 @@
 """Signal conditioning of A-scans: rectification, envelope, filters, smoothing, DAC, TCG and decibels.
 
 Every function that takes a scan grid returns a new grid (float32 %FSH,
-integer data converted through :func:`ndtmap.grid.ascan_in_fsh` first, so
+integer data converted through :func:`ndtmap.grid.schema.ascan_in_fsh` first, so
 ``abs`` of the int16 value -32768 cannot overflow), appends a provenance
 step and leaves its input alone. Kernels work along ``time``; on a
 dask-backed grid the result stays lazy (chunks are made to hold whole
@@ -33,11 +33,12 @@ import xarray as xr
 from scipy import ndimage
 from scipy import signal as sps
 
-from ._gridops import check_grid, part_constants, replace_ascan, whole_time
-from ._validate import one_of, positive_float, positive_int
-from .errors import CalibrationError, ParameterError, ParameterTypeError
-from .grid import ascan_in_fsh
-from .provenance import with_step
+from ndtmap._shared.arrays import whole_time
+from ndtmap._shared.validate import one_of, positive_float, positive_int
+from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
+from ndtmap.grid.geometry import part_constants
+from ndtmap.grid.provenance import with_step
+from ndtmap.grid.schema import ascan_in_fsh, check_grid, replace_ascan
 
 __all__ = [
     "DETECTIONS",
@@ -73,7 +74,7 @@ def _envelope_kernel(x: np.ndarray, missing: np.ndarray | None = None, *, scale:
     so the envelope ``sqrt(a^2 + H[a]^2)`` needs one real FFT and one
     inverse real FFT of each block, in float64, and no complex copy of more
     than one block. Integer counts are converted as
-    :func:`ndtmap.grid.ascan_in_fsh` does (float32 counts times the float32
+    :func:`ndtmap.grid.schema.ascan_in_fsh` does (float32 counts times the float32
     `scale`); A-scans flagged in `missing` (shape ``x.shape[:-1]``) are NaN.
     """
     from scipy import fft as sp_fft
@@ -187,7 +188,7 @@ def rectify(grid: xr.Dataset, *, mode: str = "full", polarity: str = "positive")
 
     Examples
     --------
-    >>> from ndtmap._examples import example_grid
+    >>> from ndtmap.grid.examples import example_grid
     >>> g = rectify(example_grid())
     >>> g.ascan.attrs["signal"], bool(g.ascan.min() >= 0)
     ('rectified', True)
@@ -232,7 +233,7 @@ def envelope(grid: xr.Dataset) -> xr.Dataset:
 
     Examples
     --------
-    >>> from ndtmap._examples import example_grid
+    >>> from ndtmap.grid.examples import example_grid
     >>> env = envelope(example_grid((4.0,), (50.0,)))
     >>> round(float(env.ascan.max()), 1)
     50.0
@@ -283,7 +284,7 @@ def bandpass(
 
     Examples
     --------
-    >>> from ndtmap._examples import example_grid
+    >>> from ndtmap.grid.examples import example_grid
     >>> g = bandpass(example_grid(), 2.0, 8.0)
     >>> int(g.ascan.isel(scan=0, index=0).argmax("time"))  # the echo stays at 4 us (sample 200)
     200
@@ -351,7 +352,7 @@ def smooth(grid: xr.Dataset, width_us: float, *, kind: str = "gaussian") -> xr.D
 
     Examples
     --------
-    >>> from ndtmap._examples import example_grid
+    >>> from ndtmap.grid.examples import example_grid
     >>> g = smooth(rectify(example_grid()), 0.1)
     >>> g.ascan.attrs["smoothing"]
     'gaussian, FWHM 0.1 us'
@@ -391,7 +392,7 @@ def detected_signal(grid: xr.Dataset, detect: str = "rectified") -> xr.DataArray
 
     Examples
     --------
-    >>> from ndtmap._examples import example_grid
+    >>> from ndtmap.grid.examples import example_grid
     >>> float(detected_signal(example_grid(), "rectified").min()) >= 0
     True
     """
@@ -643,7 +644,7 @@ def apply_tcg(grid: xr.Dataset, dac: DacCurve, *, target_fsh: float = 80.0) -> x
 
     Examples
     --------
-    >>> from ndtmap._examples import example_grid
+    >>> from ndtmap.grid.examples import example_grid
     >>> g = example_grid((4.0,), (40.0,))          # echo at 11.84 mm
     >>> dac = dac_curve([5.0, 20.0], [80.0, 20.0])
     >>> out = apply_tcg(g, dac, target_fsh=80.0)

@@ -10,17 +10,15 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
-from burst_grids import STEEL_L, plate_grid
+from helpers.burst_grids import STEEL_L, plate_grid
 
-from ndtmap.cli import main
+from ndtmap.cli.app import main
 from ndtmap.cluster import check_scheduler_address, use_scheduler
-from ndtmap.convert import convert_to_zarr, write_zarr
 from ndtmap.errors import ParameterError, ParameterTypeError
 from ndtmap.gates import Gate, evaluate_gates
 from ndtmap.grid import make_grid
-from ndtmap.io import export_raw, open_grid
-from ndtmap.maps import amplitude_map, backwall_loss_map, depth_map, thickness_map
-from ndtmap.sections import b_scan
+from ndtmap.io import convert_to_zarr, export_raw, open_grid, write_zarr
+from ndtmap.scans import amplitude_map, b_scan, backwall_loss_map, depth_map, thickness_map
 
 distributed = pytest.importorskip("distributed")
 

@@ -11,7 +11,7 @@ draws it with plotly ``FigureWidget`` and ipywidgets;
 to save them).
 """
 
-from .state import MAP_KINDS, TOOLS, DropMeasurement, WorkbenchState, default_procedure
+from ndtmap.workbench.state import MAP_KINDS, TOOLS, DropMeasurement, WorkbenchState, default_procedure
 
 __all__ = ["open_workbench", "Workbench", "WorkbenchState", "DropMeasurement", "MAP_KINDS", "TOOLS",
            "default_procedure"]
@@ -19,7 +19,7 @@ __all__ = ["open_workbench", "Workbench", "WorkbenchState", "DropMeasurement", "
 
 def __getattr__(name: str):  # the widget layer imports plotly and ipywidgets only when asked for
     if name in ("open_workbench", "Workbench"):
-        from . import view
+        from ndtmap.workbench import view
 
         return getattr(view, name)
     raise AttributeError(f"module 'ndtmap.workbench' has no attribute {name!r}")

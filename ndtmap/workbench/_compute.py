@@ -5,7 +5,7 @@ The crop
     window (and, for a following gate, inside the windows of the gates it
     follows), so the workbench evaluates gates on the grid cut to the time
     span that the gate chain can reach (from
-    :meth:`ndtmap.gates._Evaluator.bounds`, which also checks the windows
+    :meth:`ndtmap.gates.evaluate._Evaluator.bounds`, which also checks the windows
     against the full record), plus two samples each side. The missing-A-scan
     mask of the full grid is carried into the cut grid as its ``missing``
     variable, so an A-scan with a NaN outside the window stays missing. The
@@ -30,9 +30,9 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from .._gridops import is_lazy
-from ..errors import GateError
-from ..gates import Gate
+from ndtmap._shared.arrays import is_lazy
+from ndtmap.errors import GateError
+from ndtmap.gates.evaluate import Gate
 
 #: A function told the fraction of work done (0..1, or None when unknown) and what is being done.
 Progress = Callable[[float | None, str], None]
@@ -81,9 +81,9 @@ def chain_bounds_us(grid: xr.Dataset, chain: list[Gate], detect: str) -> tuple[f
     ------
     GateError
         When a window lies outside the record (the message of
-        :mod:`ndtmap.gates`).
+        :mod:`ndtmap.gates.evaluate`).
     """
-    from ..gates import _Evaluator  # the authoritative window logic, also used by ndtmap.maps
+    from ndtmap.gates.evaluate import _Evaluator  # the authoritative window logic, also used by ndtmap.maps
 
     table = {g.name: g for g in chain}
     ev = _Evaluator(grid, table, detect, None)
@@ -126,7 +126,7 @@ def in_slabs(grid: xr.Dataset) -> xr.Dataset:
     """
     import os
 
-    from ..gates import KERNEL_ENV
+    from ndtmap.gates.evaluate import KERNEL_ENV
 
     if is_lazy(grid) or os.environ.get(KERNEL_ENV, "compiled") != "numpy":
         return grid

@@ -16,7 +16,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from ._compute import Progress
+from ndtmap.workbench._compute import Progress
 
 
 @dataclass

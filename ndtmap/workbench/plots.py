@@ -3,7 +3,7 @@
 Each builder returns a figure with a fixed set of traces for its inputs, so
 the widget layer can copy the trace data into a live ``FigureWidget``, and
 :func:`save_views` can write the same figures to files. Colour scales come
-from :mod:`ndtmap.style` (viridis for %FSH, cividis for mm, the diverging
+from :mod:`ndtmap.plot.style` (viridis for %FSH, cividis for mm, the diverging
 purple-orange scale centred on 0 for dB) and every colour bar names its
 quantity and unit.
 
@@ -29,7 +29,7 @@ import numpy as np
 import plotly.graph_objects as go
 import xarray as xr
 
-from ..style import ACCENTS, FONT_FAMILY, color_scale_for, label_from_attrs
+from ndtmap.plot.style import ACCENTS, FONT_FAMILY, color_scale_for, label_from_attrs
 
 __all__ = [
     "MAX_MAP_CELLS",
@@ -410,7 +410,7 @@ def section_figure(section: xr.DataArray, *, along: str, cursor_mm: float | None
     Parameters
     ----------
     section : xarray.DataArray (position, time)
-        From :func:`ndtmap.sections.b_scan` or :func:`~ndtmap.sections.d_scan`
+        From :func:`ndtmap.scans.sections.b_scan` or :func:`~ndtmap.scans.sections.d_scan`
         (with its ``depth`` coordinate).
     cursor_mm : float, optional
         The selected position along the section (a vertical line).
@@ -573,15 +573,15 @@ def save_views(state: Any, folder: str | os.PathLike[str], *, stem: str = "workb
         File names are ``<stem>-<view>.<ext>``.
     formats : iterable of {'html', 'png', 'svg', 'pdf'}
         Static formats are skipped without Chromium
-        (:func:`ndtmap.export.find_chromium`).
+        (:func:`ndtmap.plot.export.find_chromium`).
 
     Returns
     -------
     list of pathlib.Path
         The files written.
     """
-    from ..errors import ParameterError
-    from ..export import export_session, find_chromium, write_figure
+    from ndtmap.errors import ParameterError
+    from ndtmap.plot.export import export_session, find_chromium, write_figure
 
     out = Path(folder)
     if not out.is_dir():

@@ -4,10 +4,10 @@
 which kind of map are shown, the selected probe position, the tool in use,
 the measured line and the indication list. Every number it gives comes from
 the same functions as the command line: gates from
-:func:`ndtmap.gates.evaluate_gate`, sections from :func:`ndtmap.sections.b_scan`
-and :func:`~ndtmap.sections.d_scan`, drop lengths from
-:func:`ndtmap.sizing.drop_length`, the indication list from
-:func:`ndtmap.procedure.run_procedure` (so ``ndtmap indications --procedure``
+:func:`ndtmap.gates.evaluate.evaluate_gate`, sections from :func:`ndtmap.scans.sections.b_scan`
+and :func:`~ndtmap.scans.sections.d_scan`, drop lengths from
+:func:`ndtmap.indications.sizing.drop_length`, the indication list from
+:func:`ndtmap.procedure.definition.run_procedure` (so ``ndtmap indications --procedure``
 on the saved settings gives the same list).
 
 The state draws nothing and has no widgets; :mod:`ndtmap.workbench.view`
@@ -21,15 +21,15 @@ Maps
     recompute. The four kinds are read from one gate result:
 
     * ``'amplitude'``: the gate's ``amplitude_fsh`` (as
-      :func:`ndtmap.maps.amplitude_map`);
-    * ``'depth'``: the event depth ``depth_mm`` (as :func:`~ndtmap.maps.depth_map`);
+      :func:`ndtmap.scans.maps.amplitude_map`);
+    * ``'depth'``: the event depth ``depth_mm`` (as :func:`~ndtmap.scans.maps.depth_map`);
     * ``'thickness'``: the event depth where positive (as
-      :func:`~ndtmap.maps.thickness_map` with ``method='first-echo'``; on an
+      :func:`~ndtmap.scans.maps.thickness_map` with ``method='first-echo'``; on an
       immersion grid a gate that follows the interface gate counts from the
       interface echo, i.e. interface to back wall);
     * ``'backwall-loss'``: ``20 log10(nominal / max(A, 0.1 %FSH))`` with the
       nominal level of the procedure's back-wall gate or the median over the
-      scan (as :func:`~ndtmap.maps.backwall_loss_map`).
+      scan (as :func:`~ndtmap.scans.maps.backwall_loss_map`).
 
     Rectified gates are evaluated on the grid cut to the time span their
     windows can reach (see :mod:`ndtmap.workbench._compute`).
@@ -49,19 +49,20 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from .. import _mapgeom as mg
-from .._gridops import check_grid, is_lazy, part_constants
-from .._validate import finite_float, nonnegative_float, one_of, positive_float
-from ..errors import GateError, NdtmapError, ParameterError, ParameterTypeError, SizingError
-from ..flags import FLAG_MEANINGS
-from ..gates import GATE_UNITS, Gate, evaluate_gate, evaluate_gates, gate_window_us
-from ..grid import ascan_in_fsh, grid_attr, missing_ascans
-from ..procedure import Analysis, Procedure, load_procedure, procedure_to_toml, run_procedure
-from ..provenance import with_step
-from ..sections import b_scan, d_scan
-from ..signal import detected_signal
-from ..sizing import LengthResult, drop_length
-from . import _compute as cx
+from ndtmap._shared import mapgeom as mg
+from ndtmap._shared.arrays import is_lazy
+from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float
+from ndtmap.errors import GateError, NdtmapError, ParameterError, ParameterTypeError, SizingError
+from ndtmap.gates.evaluate import GATE_UNITS, Gate, evaluate_gate, evaluate_gates, gate_window_us
+from ndtmap.grid.geometry import part_constants
+from ndtmap.grid.provenance import with_step
+from ndtmap.grid.schema import ascan_in_fsh, check_grid, grid_attr, missing_ascans
+from ndtmap.indications.flags import FLAG_MEANINGS
+from ndtmap.indications.sizing import LengthResult, drop_length
+from ndtmap.procedure.definition import Analysis, Procedure, load_procedure, procedure_to_toml, run_procedure
+from ndtmap.scans.sections import b_scan, d_scan
+from ndtmap.signal import detected_signal
+from ndtmap.workbench import _compute as cx
 
 __all__ = [
     "MAP_KINDS",
@@ -79,7 +80,7 @@ TOOLS = ("inspect", "measure")
 DETECT_KINDS = ("rectified", "envelope")
 #: Gate results kept in the cache (each is a few (scan, index) float maps).
 CACHE_SIZE = 24
-#: Least back-wall amplitude used in the loss ratio, %FSH (as ndtmap.maps.backwall_loss_map).
+#: Least back-wall amplitude used in the loss ratio, %FSH (as ndtmap.scans.maps.backwall_loss_map).
 LOSS_FLOOR_FSH = 0.1
 
 
@@ -142,9 +143,9 @@ class DropMeasurement:
         Its position.
     level_fsh : float
         The level the length is measured at, %FSH.
-    result : ndtmap.sizing.LengthResult
+    result : ndtmap.indications.sizing.LengthResult
         Length, uncertainty, end points and notes from
-        :func:`ndtmap.sizing.drop_length`.
+        :func:`ndtmap.indications.sizing.drop_length`.
     distance_mm, profile_fsh : numpy.ndarray
         The amplitude profile along the line (bilinear samples, NaN outside
         the map), distance from the line's start.
@@ -178,12 +179,12 @@ class DropMeasurement:
 def default_procedure(grid: xr.Dataset) -> Procedure:
     """The procedure a workbench opens with when none is given.
 
-    The first-look procedure (:func:`ndtmap.procedure.first_look_procedure`)
+    The first-look procedure (:func:`ndtmap.procedure.definition.first_look_procedure`)
     where it can be derived; otherwise (angle beams, no back wall in the
     record) one gate over the middle 80 % of the recorded depth at
     20 %FSH.
     """
-    from ..procedure import first_look_procedure
+    from ndtmap.procedure.definition import first_look_procedure
 
     try:
         return first_look_procedure(grid)
@@ -229,7 +230,7 @@ class WorkbenchState:
 
     Examples
     --------
-    >>> from ndtmap._examples import example_grid
+    >>> from ndtmap.grid.examples import example_grid
     >>> st = WorkbenchState(example_grid((4.0,), (60.0,)))   # a back-wall echo at 11.84 mm
     >>> st.gate_names
     ('flaw', 'backwall')
@@ -254,7 +255,7 @@ class WorkbenchState:
         self.source = source
         self._raw_grid = grid
         if proc.velocity_m_s is not None or proc.zero_offset_us is not None:
-            from ..calibration import calibrate
+            from ndtmap.grid.calibration import calibrate
 
             grid = calibrate(grid, velocity_m_s=proc.velocity_m_s, zero_offset_us=proc.zero_offset_us,
                              note=f"procedure {proc.name}")
@@ -308,7 +309,7 @@ class WorkbenchState:
     @property
     def caution(self) -> str:
         """The caution every result of ndtmap carries."""
-        from .. import CAUTION
+        from ndtmap import CAUTION
 
         return CAUTION
 
@@ -362,7 +363,7 @@ class WorkbenchState:
             A whole new definition (replacing the gate of the same name), or
             the name of the gate to change.
         **changes
-            Fields of :class:`~ndtmap.gates.Gate` to change: ``start``,
+            Fields of :class:`~ndtmap.gates.evaluate.Gate` to change: ``start``,
             ``end``, ``unit``, ``threshold_fsh``, ``mode``, ``follows``.
 
         Returns
@@ -543,7 +544,7 @@ class WorkbenchState:
         return self.gate_key(name) in self._cache
 
     def gate_result(self, name: str | None = None, *, progress: cx.Progress | None = None) -> xr.Dataset:
-        """The gate's result on every A-scan (:func:`ndtmap.gates.evaluate_gate`), in memory, cached."""
+        """The gate's result on every A-scan (:func:`ndtmap.gates.evaluate.evaluate_gate`), in memory, cached."""
         gate = self.gate(name)
         chain = cx.gate_chain(self._gates, gate.name)
         key = cx.chain_key(chain, self.detect)
@@ -712,11 +713,11 @@ class WorkbenchState:
         return out
 
     def b_scan(self) -> xr.DataArray:
-        """B-scan (scan, time) through the selected position (:func:`ndtmap.sections.b_scan`, nearest line)."""
+        """B-scan (scan, time) through the selected position (:func:`ndtmap.scans.sections.b_scan`, nearest line)."""
         return self._section("scan")[0]
 
     def d_scan(self) -> xr.DataArray:
-        """D-scan (index, time) through the selected position (:func:`ndtmap.sections.d_scan`, nearest line)."""
+        """D-scan (index, time) through the selected position (:func:`ndtmap.scans.sections.d_scan`, nearest line)."""
         return self._section("index")[0]
 
     def section_gates(self, along: str) -> tuple[SectionGate, ...]:
@@ -740,9 +741,9 @@ class WorkbenchState:
         """Measure the drop length along the line `start_mm` -> `end_mm` on the amplitude map of `gate`.
 
         The line must cross an indication of that map (a region at or above
-        the gate's threshold, :func:`ndtmap.indications.detect_indications`);
+        the gate's threshold, :func:`ndtmap.indications.detection.detect_indications`);
         of those it crosses, the one with the highest amplitude on the line
-        is measured, by :func:`ndtmap.sizing.drop_length` with ``line=``.
+        is measured, by :func:`ndtmap.indications.sizing.drop_length` with ``line=``.
 
         Raises
         ------
@@ -760,7 +761,7 @@ class WorkbenchState:
         return self._measure()
 
     def _measure(self) -> DropMeasurement:
-        from ..indications import detect_indications
+        from ndtmap.indications.detection import detect_indications
 
         assert self._line is not None
         p0, p1 = self._line
@@ -873,7 +874,7 @@ class WorkbenchState:
         A screening-rules path is written relative to the new file's folder
         when possible.
         """
-        from ..procedure import save_procedure
+        from ndtmap.procedure.definition import save_procedure
 
         p = Path(path)
         if p.suffix.lower() != ".toml":
@@ -889,7 +890,7 @@ class WorkbenchState:
         return save_procedure(proc, p)
 
     def analysis(self, *, progress: cx.Progress | None = None) -> Analysis:
-        """:func:`ndtmap.procedure.run_procedure` on the grid with the current settings (cached)."""
+        """:func:`ndtmap.procedure.definition.run_procedure` on the grid with the current settings (cached)."""
         proc = self.procedure()
         key = procedure_to_toml(proc)
         with self._lock:

@@ -37,12 +37,12 @@ import numpy as np
 import plotly.graph_objects as go
 import xarray as xr
 
-from .._gridops import is_lazy
-from ..errors import NdtmapError, ParameterTypeError
-from ..gates import GATE_MODES
-from . import plots
-from ._tasks import TaskRunner
-from .state import MAP_KINDS, WorkbenchState, indication_details, indication_label
+from ndtmap._shared.arrays import is_lazy
+from ndtmap.errors import NdtmapError, ParameterTypeError
+from ndtmap.gates.evaluate import GATE_MODES
+from ndtmap.workbench import plots
+from ndtmap.workbench._tasks import TaskRunner
+from ndtmap.workbench.state import MAP_KINDS, WorkbenchState, indication_details, indication_label
 
 __all__ = ["Workbench", "open_workbench", "BACKGROUND_MIN_SAMPLES"]
 
@@ -66,7 +66,7 @@ def open_workbench(grid_or_path: xr.Dataset | str | os.PathLike[str], *, procedu
     ----------
     grid_or_path : xarray.Dataset or path
         A scan grid, or the path of one (opened with
-        :func:`ndtmap.io.open_grid`; large files are opened lazily).
+        :func:`ndtmap.io.grid_files.open_grid`; large files are opened lazily).
     procedure : Procedure or path, optional
         Gates and settings to start from (default: the first-look procedure
         derived from the grid, see
@@ -85,7 +85,7 @@ def open_workbench(grid_or_path: xr.Dataset | str | os.PathLike[str], *, procedu
     GridError, FileFormatError, ProcedureError, GateError
         For a grid or procedure that cannot be used.
     """
-    from ..io import open_grid
+    from ndtmap.io.grid_files import open_grid
 
     if isinstance(grid_or_path, xr.Dataset):
         grid, source = grid_or_path, None
@@ -353,7 +353,7 @@ class Workbench:
         c["save_folder"] = W.Text(value=str(Path.cwd() / "workbench-output"), description="folder",
                                   layout=W.Layout(width="98%"))
         c["save_stem"] = W.Text(value=str(st.grid.attrs.get("part_id", "workbench")), description="name")
-        from ..export import find_chromium
+        from ndtmap.plot.export import find_chromium
 
         browser = find_chromium() is not None
         c["save_png"] = W.Checkbox(value=browser, disabled=not browser, description="PNG", indent=False,

@@ -19,7 +19,7 @@ HERE = Path(__file__).resolve().parents[1]
 
 SETUP = """\
 import ndtmap
-from ndtmap.samples import sample_path
+from ndtmap.simulate import sample_path
 
 print(ndtmap.CAUTION)"""
 
@@ -74,7 +74,7 @@ at what depth each one lies.
 """),
     code("""
 # NBVAL_IGNORE_OUTPUT
-from ndtmap.maps import amplitude_map, depth_map
+from ndtmap.scans import amplitude_map, depth_map
 from ndtmap.workbench import plots
 
 amp = amplitude_map(grid, flaw)
@@ -91,7 +91,7 @@ along the index axis at one scan position. Both go through lamination L1 here.
 """),
     code("""
 # NBVAL_IGNORE_OUTPUT
-from ndtmap.sections import b_scan
+from ndtmap.scans import b_scan
 
 plots.section_figure(b_scan(grid, 24.0), along="scan", cursor_mm=37.5, title="B-scan at index 24 mm")"""),
     code("""
@@ -263,7 +263,7 @@ import numpy as np
 
 from ndtmap.gates import Gate
 from ndtmap.indications import detect_indications
-from ndtmap.maps import amplitude_map, depth_map
+from ndtmap.scans import amplitude_map, depth_map
 from ndtmap.simulate import scan_truth
 
 grid = ndtmap.open_grid(sample_path("forging_block.nc"))
@@ -297,7 +297,7 @@ Two gates keep the zones apart: `mid` (80-115 mm) and
 recognised as one.
 """),
     code("""
-from ndtmap.sizing_table import size_indications
+from ndtmap.indications import size_indications
 
 upper = Gate("upper", 10.0, 80.0, threshold_fsh=3.0)
 backwall = Gate("backwall", 150.0, 168.0, threshold_fsh=20.0)
@@ -328,7 +328,7 @@ What the flags say:
 """),
     code("""
 # NBVAL_CHECK_OUTPUT
-from ndtmap.flags import FLAG_MEANINGS
+from ndtmap.indications import FLAG_MEANINGS
 
 for flag in sorted({f for _, rec in records for f in rec["flags"]}):
     print(f"{flag}: {FLAG_MEANINGS[flag]}")"""),
@@ -358,7 +358,7 @@ import numpy as np
 
 from ndtmap.gates import Gate
 from ndtmap.grid import missing_ascans
-from ndtmap.maps import thickness_map
+from ndtmap.scans import thickness_map
 from ndtmap.simulate import scan_truth
 
 grid = ndtmap.open_grid(sample_path("corroded_wall.nc"))
@@ -404,7 +404,7 @@ never an assumed thickness.
 
 ## Figures for the report
 
-`ndtmap.export.write_figure` writes HTML always, and PNG, SVG or PDF when a Chromium browser is
+`ndtmap.plot.export.write_figure` writes HTML always, and PNG, SVG or PDF when a Chromium browser is
 installed. The workbench's *Save* panel does the same for its current views.
 """),
     code("""
@@ -412,7 +412,7 @@ installed. The workbench's *Save* panel does the same for its current views.
 import tempfile
 from pathlib import Path
 
-from ndtmap.export import find_chromium, write_figure
+from ndtmap.plot import find_chromium, write_figure
 
 out = Path(tempfile.mkdtemp(prefix="kfp-pw-1180-"))
 fig = plots.plan_figure(thickness, title="KFP-PW-1180 remaining wall")

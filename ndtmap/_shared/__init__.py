@@ -1,0 +1,3 @@
+"""ndtmap._shared."""
+
+__all__: list[str] = []

@@ -1,0 +1,293 @@
+"""Validity flags of sized indications: where a method cannot support its result.
+
+Every sized indication carries a list of flags from :data:`FLAG_MEANINGS`. A
+flagged result is still reported, never dropped: the flag tells the
+reader how far to trust it and what to do instead.
+
+Rules used here (each also stated in the function that applies it):
+
+``saturated``
+    Peak >= 100 %FSH or at the digitiser full scale (``digitiser_full_scale_fsh``,
+    default 100) within 0.1 %: the true peak is unknown, so every drop is
+    measured from a wrong reference and the DGS size is a lower bound.
+``smaller_than_beam``
+    The 6 dB drop length along the scan or the index axis is not larger than
+    the -6 dB pulse-echo beam width at the indication's sound path plus the
+    length's own uncertainty: the drop measured the beam, not the reflector.
+``at_scan_edge``
+    The detected region or a sizing line or region reaches the boundary of
+    the map: lengths and areas are lower bounds.
+``repeat_echo``
+    The depth is within ``max(tolerance_mm, tolerance_fraction * depth)``
+    (default ``max(2 mm, 3 %)``) of k times the depth of a stronger indication
+    whose extent overlaps (k = 2, 3), or of k times the back-wall depth (a
+    back-wall multiple, k = 2, 3).
+``near_field``
+    The sound path is shorter than 3 near-field lengths, where the far-field
+    DGS relation does not hold (see :mod:`ndtmap.indications.dgs`).
+``low_snr``
+    The peak is less than `min_snr_db` (default 6 dB) above the noise level
+    of the map, taken as the median amplitude of the valid positions outside
+    every detected region grown by two positions.
+``data_gap``
+    Missing A-scans inside or next to the sized region, or bridged on a
+    sizing line.
+``beam_limited_20db``
+    The 20 dB drop length is not larger than the -20 dB beam width: the
+    beam-corrected 20 dB size is not given.
+``backwall_echo``
+    The depth is the nominal back-wall depth (set by
+    :func:`ndtmap.indications.echoes.classify_echoes`, which also adds ``repeat_echo``
+    when the A-scan holds a stronger echo at 1/2 or 1/3 of the depth).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+
+import numpy as np
+import xarray as xr
+from scipy import ndimage
+
+from ndtmap._shared import mapgeom as mg
+from ndtmap._shared.validate import nonnegative_float, positive_float
+from ndtmap.errors import ParameterTypeError
+from ndtmap.indications.detection import Indication
+
+__all__ = [
+    "FLAG_MEANINGS",
+    "FLAGS",
+    "is_saturated",
+    "is_smaller_than_beam",
+    "noise_level_fsh",
+    "is_low_snr",
+    "repeat_echo_notes",
+    "explain",
+]
+
+#: Every flag and its one-line meaning.
+FLAG_MEANINGS: dict[str, str] = {
+    "saturated": "peak at 100 %FSH or the digitiser full scale: the true peak is unknown, drop sizing is invalid "
+    "and the DGS size a lower bound; rescan at lower gain",
+    "smaller_than_beam": "6 dB drop length not larger than the -6 dB beam width at that depth: the drop measured "
+    "the beam, report the DGS equivalent size instead",
+    "at_scan_edge": "the indication or its sizing reaches the edge of the scanned area: lengths and areas are lower "
+    "bounds",
+    "repeat_echo": "depth about 2 or 3 times that of a stronger overlapping indication or of the back wall: "
+    "probably a repeat (multiple) echo, not a separate reflector",
+    "near_field": "inside about 3 near-field lengths: the far-field DGS relation does not hold, the piston-model "
+    "DGS curve was used and the equivalent size is less certain",
+    "low_snr": "peak less than 6 dB above the noise level of the map: may be noise",
+    "data_gap": "missing A-scans inside or next to the sized region or on a sizing line: sizes may be wrong there",
+    "beam_limited_20db": "20 dB drop length not larger than the -20 dB beam width: no beam-corrected 20 dB size",
+    "backwall_echo": "the echo lies at the nominal back-wall depth: a geometry echo of the back wall reached by "
+    "the gate, not a reflector inside the wall",
+}
+
+#: The flag names, in report order.
+FLAGS: tuple[str, ...] = tuple(FLAG_MEANINGS)
+
+
+def is_saturated(peak_fsh: float | None, *, full_scale_fsh: float = 100.0, rtol: float = 1e-3) -> bool:
+    """True when a peak is at 100 %FSH or at the digitiser full scale.
+
+    Parameters
+    ----------
+    peak_fsh : float or None
+        Peak amplitude, %FSH (None: not saturated).
+    full_scale_fsh : float, default 100
+        Digitiser full scale (clipping level), %FSH.
+    rtol : float, default 1e-3
+        Relative tolerance below the full scale still counted as "at" it.
+
+    Examples
+    --------
+    >>> is_saturated(100.0), is_saturated(99.5), is_saturated(127.0, full_scale_fsh=127.0)
+    (True, False, True)
+    """
+    if peak_fsh is None or not math.isfinite(peak_fsh):
+        return False
+    fs = positive_float("full_scale_fsh", full_scale_fsh)
+    return bool(peak_fsh >= 100.0 or peak_fsh >= fs * (1.0 - rtol))
+
+
+def is_smaller_than_beam(length_mm: float | None, uncertainty_mm: float | None, beam_width_mm: float | None) -> bool:
+    """True when a 6 dB length is not larger than the beam width (within its uncertainty).
+
+    Examples
+    --------
+    >>> is_smaller_than_beam(12.3, 0.5, 12.19), is_smaller_than_beam(20.0, 0.5, 12.19)
+    (True, False)
+    """
+    if length_mm is None or beam_width_mm is None:
+        return False
+    return bool(length_mm <= beam_width_mm + (uncertainty_mm or 0.0))
+
+
+def noise_level_fsh(
+    amplitude_map: xr.DataArray, indications: Iterable[Indication] = (), *, grow: int = 2, min_positions: int = 10
+) -> float | None:
+    """Noise level of an amplitude map: median of the valid positions outside indications.
+
+    Each indication's region is grown by `grow` positions (8-connected) so
+    that the skirts of the echoes are left out too.
+
+    Parameters
+    ----------
+    amplitude_map : xarray.DataArray (scan, index)
+        Amplitude, %FSH.
+    indications : iterable of Indication
+        Detected on this map.
+    grow : int, default 2
+        Positions added around each region.
+    min_positions : int, default 10
+        Fewer valid positions outside: None (noise unknown).
+
+    Returns
+    -------
+    float or None
+        %FSH.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> a = np.full((8, 8), 5.0); a[3, 3] = 80.0
+    >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(8.0), "index": np.arange(8.0)})
+    >>> noise_level_fsh(m)
+    5.0
+    """
+    amp = mg.as_map("amplitude_map", amplitude_map)
+    values = amp.values
+    keep = np.isfinite(values)
+    regions = np.zeros(values.shape, dtype=bool)
+    for k, ind in enumerate(indications):
+        if not isinstance(ind, Indication):
+            raise ParameterTypeError(f"`indications[{k}]` must be an Indication, got {type(ind).__name__}")
+        if ind.region.shape == values.shape:
+            regions |= ind.region
+    if regions.any() and grow > 0:
+        regions = ndimage.binary_dilation(regions, structure=mg.STRUCTURE_8, iterations=int(grow))
+    keep &= ~regions
+    if np.count_nonzero(keep) < min_positions:
+        return None
+    return float(np.median(values[keep]))
+
+
+def is_low_snr(peak_fsh: float | None, noise_fsh: float | None, *, min_snr_db: float = 6.0) -> bool:
+    """True when the peak is less than `min_snr_db` above the noise level.
+
+    Examples
+    --------
+    >>> is_low_snr(15.0, 10.0), is_low_snr(40.0, 10.0), is_low_snr(40.0, 0.0)
+    (True, False, False)
+    """
+    if peak_fsh is None or noise_fsh is None or noise_fsh <= 0:
+        return False
+    snr = nonnegative_float("min_snr_db", min_snr_db)
+    if peak_fsh <= 0:
+        return True
+    return bool(20.0 * math.log10(peak_fsh / noise_fsh) < snr)
+
+
+def _overlap(a: Indication, b: Indication) -> bool:
+    return not (
+        a.scan_max_mm < b.scan_min_mm
+        or b.scan_max_mm < a.scan_min_mm
+        or a.index_max_mm < b.index_min_mm
+        or b.index_max_mm < a.index_min_mm
+    )
+
+
+def _strength(ind: Indication) -> float:
+    return ind.peak_fsh if ind.peak_fsh is not None else -math.inf
+
+
+def repeat_echo_notes(
+    indications: Sequence[Indication],
+    *,
+    backwall_depth_mm: float | None = None,
+    multiples: Sequence[int] = (2, 3),
+    tolerance_mm: float = 2.0,
+    tolerance_fraction: float = 0.03,
+    others: Sequence[Indication] = (),
+) -> dict[int, list[str]]:
+    """Find indications whose depth is a multiple of a stronger one's or of the back wall's.
+
+    An indication is a likely repeat echo when its depth at the peak lies
+    within ``max(tolerance_mm, tolerance_fraction * depth)`` of k times
+
+    * the depth of a stronger amplitude indication (higher peak %FSH) whose
+      extent rectangle (scan_min..scan_max x index_min..index_max) overlaps
+      its own, or
+    * the back-wall depth (a back-wall multiple),
+
+    for k in `multiples`.
+
+    Parameters
+    ----------
+    indications : sequence of Indication
+        Checked (and compared with each other).
+    backwall_depth_mm : float, optional
+        Back-wall depth (the part thickness), mm.
+    multiples : sequence of int, default (2, 3)
+        The k tried.
+    tolerance_mm, tolerance_fraction : float
+        Depth tolerance, see above.
+    others : sequence of Indication, optional
+        Further possible primaries, e.g. from another gate's map.
+
+    Returns
+    -------
+    dict
+        ``{id: [note, ...]}`` for every indication found to be a repeat.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from ndtmap.indications.detection import Indication
+    >>> def ind(i, peak, depth):
+    ...     return Indication(i, "amplitude", peak, None, None, None, 5.0, 5.0, (0, 0), depth, depth, depth,
+    ...                       0.0, 10.0, 0.0, 10.0, 4, 4.0, ">= 20 %FSH", False, 0, np.zeros((1, 1), bool))
+    >>> repeat_echo_notes([ind(1, 90.0, 12.0), ind(2, 30.0, 24.5)])
+    {2: ['depth 24.5 mm is about 2 x the depth of indication 1 (12.0 mm)']}
+    """
+    tol_mm = nonnegative_float("tolerance_mm", tolerance_mm)
+    tol_fr = nonnegative_float("tolerance_fraction", tolerance_fraction)
+    bw = None if backwall_depth_mm is None else positive_float("backwall_depth_mm", backwall_depth_mm)
+    pool = [*indications, *others]
+    out: dict[int, list[str]] = {}
+    for ind in indications:
+        z = ind.depth_mm
+        if z is None or ind.kind != "amplitude":
+            continue
+        tol = max(tol_mm, tol_fr * z)
+        notes: list[str] = []
+        for other in pool:
+            if other is ind or other.kind != "amplitude" or other.depth_mm is None or other.depth_mm <= 0:
+                continue
+            if not (_strength(other) > _strength(ind)) or not _overlap(ind, other):
+                continue
+            for k in multiples:
+                if abs(z - k * other.depth_mm) <= tol:
+                    notes.append(
+                        f"depth {z:.1f} mm is about {k} x the depth of indication {other.id} ({other.depth_mm:.1f} mm)"
+                    )
+        if bw is not None:
+            for k in multiples:
+                if abs(z - k * bw) <= tol:
+                    notes.append(f"depth {z:.1f} mm is about {k} x the back-wall depth ({bw:.1f} mm)")
+        if notes:
+            out[ind.id] = notes
+    return out
+
+
+def explain(flags: Iterable[str]) -> list[str]:
+    """One-line explanations of the given flags (unknown names pass through).
+
+    Examples
+    --------
+    >>> explain(["saturated"])[0].startswith("saturated: peak at 100 %FSH")
+    True
+    """
+    return [f"{f}: {FLAG_MEANINGS[f]}" if f in FLAG_MEANINGS else str(f) for f in flags]

@@ -1,0 +1,559 @@
+"""Screening of sized indications against user-supplied rules (a small TOML file).
+
+The rules are the user's, written in a TOML file (see
+``docs/screening-rules.md`` for the vocabulary and
+``docs/examples/screening-rules.toml`` for an example): a recording level,
+reporting limits on single indications (length, area, equivalent size,
+back-wall loss, amplitude) and limits on the number of indications per
+square metre of scanned area. Nothing of any code or standard is built in.
+
+Screening only says, per indication and overall, "exceeds rule <name>" or
+"within rules" (or "below recording level <name>"). It never accepts or
+rejects: every result carries :data:`ndtmap.CAUTION`, because acceptance is
+decided by qualified personnel under the applicable code.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import tomllib
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+from ndtmap._shared.validate import positive_float
+from ndtmap.errors import FileFormatError, ParameterTypeError, ProcedureError
+
+__all__ = [
+    "QUANTITIES",
+    "RecordingLevel",
+    "Limit",
+    "DensityLimit",
+    "Rules",
+    "IndicationScreening",
+    "ScreeningResult",
+    "load_rules",
+    "parse_rules",
+    "screen",
+]
+
+#: Quantities a `[[limit]]` may bound, with their meaning (record keys of
+#: :func:`ndtmap.indications.pipeline.size_indications`).
+QUANTITIES: dict[str, str] = {
+    "length_mm": "the larger of the 6 dB drop lengths along the scan and index axes, mm",
+    "length_scan_mm": "6 dB drop length along the scan axis through the peak, mm",
+    "length_index_mm": "6 dB drop length along the index axis through the peak, mm",
+    "length_20db_mm": "the larger of the beam-corrected 20 dB drop lengths, mm",
+    "area_mm2": "-6 dB area (back-wall-loss indications: area of the loss region), mm^2",
+    "ers_mm": "DGS equivalent flat-bottom-hole diameter, mm",
+    "backwall_loss_db": "largest back-wall loss of a back-wall-loss indication, dB",
+    "peak_fsh": "peak amplitude, %FSH",
+    "peak_db": "peak amplitude in dB re the reference level (DAC or reference reflector)",
+}
+
+KINDS = ("amplitude", "backwall_loss")
+
+_TOP_KEYS = {"name", "description", "recording", "limit", "density"}
+_RECORDING_KEYS = {"name", "description", "level_fsh", "level_db"}
+_LIMIT_KEYS = {"name", "description", "quantity", "max", "kind"}
+_DENSITY_KEYS = {"name", "description", "max_per_m2", "kind"}
+
+
+@dataclass(frozen=True)
+class RecordingLevel:
+    """Amplitude indications below this level are not recorded (not screened further).
+
+    Exactly one of `level_fsh` (%FSH) and `level_db` (dB re the reference
+    level of the indication) is set. Back-wall-loss indications are always
+    recorded.
+    """
+
+    name: str
+    level_fsh: float | None = None
+    level_db: float | None = None
+    description: str = ""
+
+
+@dataclass(frozen=True)
+class Limit:
+    """A reporting limit: an indication exceeds it when ``quantity > max``."""
+
+    name: str
+    quantity: str
+    max: float
+    kind: str | None = None
+    description: str = ""
+
+
+@dataclass(frozen=True)
+class DensityLimit:
+    """Exceeded when recorded indications per m^2 of scanned area > `max_per_m2`."""
+
+    name: str
+    max_per_m2: float
+    kind: str | None = None
+    description: str = ""
+
+
+@dataclass(frozen=True)
+class Rules:
+    """A parsed rules file."""
+
+    name: str = ""
+    description: str = ""
+    recording: RecordingLevel | None = None
+    limits: tuple[Limit, ...] = ()
+    densities: tuple[DensityLimit, ...] = ()
+    source: str = ""
+
+    @property
+    def rule_names(self) -> tuple[str, ...]:
+        """Names of all rules, in file order (recording level first)."""
+        names = [self.recording.name] if self.recording else []
+        return (*names, *(r.name for r in self.limits), *(r.name for r in self.densities))
+
+
+@dataclass(frozen=True)
+class IndicationScreening:
+    """Screening of one indication."""
+
+    id: int
+    recorded: bool
+    statement: str
+    exceeded: tuple[str, ...] = ()
+    not_evaluated: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain JSON-serialisable dict."""
+        return {
+            "id": self.id,
+            "recorded": self.recorded,
+            "statement": self.statement,
+            "exceeded": list(self.exceeded),
+            "not_evaluated": list(self.not_evaluated),
+            "notes": list(self.notes),
+        }
+
+
+@dataclass(frozen=True)
+class ScreeningResult:
+    """Screening of a set of indications against :class:`Rules`.
+
+    Attributes
+    ----------
+    indications : tuple of IndicationScreening
+        One per indication, in the order given.
+    exceeded : tuple of str
+        Names of every rule exceeded by any indication or by the density.
+    overall : str
+        ``"within rules"`` or ``"exceeds rule <a>; exceeds rule <b>"``.
+    densities_per_m2 : dict
+        Density rule name -> indications per m^2 counted for it.
+    scanned_area_mm2 : float
+        Area the densities refer to.
+    caution : str
+        Always :data:`ndtmap.CAUTION`.
+    """
+
+    indications: tuple[IndicationScreening, ...]
+    exceeded: tuple[str, ...]
+    overall: str
+    densities_per_m2: dict[str, float] = field(default_factory=dict)
+    scanned_area_mm2: float = 0.0
+    rules_name: str = ""
+    caution: str = field(default_factory=lambda: _caution())
+
+    def for_id(self, id: int) -> IndicationScreening:
+        """The screening of the indication with this id."""
+        for s in self.indications:
+            if s.id == id:
+                return s
+        raise KeyError(id)
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain JSON-serialisable dict."""
+        return {
+            "rules": self.rules_name,
+            "overall": self.overall,
+            "exceeded": list(self.exceeded),
+            "densities_per_m2": dict(self.densities_per_m2),
+            "scanned_area_mm2": self.scanned_area_mm2,
+            "indications": [s.as_dict() for s in self.indications],
+            "caution": self.caution,
+        }
+
+
+def _caution() -> str:
+    from ndtmap import CAUTION  # the package's one caution text (imported late: ndtmap/__init__ may import this module)
+
+    return CAUTION
+
+
+# --------------------------------------------------------------------------- parsing
+
+
+def _line_of(text: str, key: str, header: str | None = None, occurrence: int = 0) -> int | None:
+    """1-based line of `key = ...` (in the `occurrence`-th `[header]`/`[[header]]` table), if found."""
+    lines = text.splitlines()
+    start, stop = 0, len(lines)
+    if header is not None:
+        pat = re.compile(r"^\s*\[\[?\s*" + re.escape(header) + r"\s*\]\]?\s*(#.*)?$")
+        heads = [i for i, ln in enumerate(lines) if pat.match(ln)]
+        if occurrence >= len(heads):
+            return None
+        start = heads[occurrence] + 1
+        nxt = [i for i, ln in enumerate(lines) if i >= start and re.match(r"^\s*\[", ln)]
+        stop = nxt[0] if nxt else len(lines)
+        if key == "":
+            return heads[occurrence] + 1
+    else:
+        nxt = [i for i, ln in enumerate(lines) if re.match(r"^\s*\[", ln)]
+        stop = nxt[0] if nxt else len(lines)
+    kpat = re.compile(r"^\s*[\"']?" + re.escape(key) + r"[\"']?\s*=")
+    for i in range(start, stop):
+        if kpat.match(lines[i]):
+            return i + 1
+    if header is not None:
+        return start  # the table header line
+    return None
+
+
+class _Ctx:
+    def __init__(self, text: str, source: str) -> None:
+        self.text = text
+        self.source = source
+
+    def fail(self, message: str, key: str = "", header: str | None = None, occurrence: int = 0) -> ProcedureError:
+        line = _line_of(self.text, key, header, occurrence) if (key or header) else None
+        where = f"{self.source}, line {line}" if line else self.source
+        return ProcedureError(f"{where}: {message}")
+
+
+def _where(header: str, occurrence: int, many: bool) -> str:
+    return f"[[{header}]] number {occurrence + 1}" if many else f"[{header}]"
+
+
+def _check_keys(ctx: _Ctx, table: Mapping[str, Any], allowed: set[str], header: str | None, occ: int,
+                label: str) -> None:
+    for key in table:
+        if key not in allowed:
+            listed = ", ".join(sorted(allowed))
+            raise ctx.fail(f"unknown key `{key}` in {label}; allowed keys: {listed}", key, header, occ)
+
+
+def _text(ctx: _Ctx, table: Mapping[str, Any], key: str, header: str | None, occ: int, label: str,
+          required: bool) -> str:
+    if key not in table:
+        if required:
+            raise ctx.fail(f"{label} needs a `{key}` (a text)", "", header, occ)
+        return ""
+    value = table[key]
+    if not isinstance(value, str):
+        raise ctx.fail(f"`{key}` in {label} must be a text in quotes, got {value!r}", key, header, occ)
+    if required and not value.strip():
+        raise ctx.fail(f"`{key}` in {label} must not be empty", key, header, occ)
+    return value.strip() if required else value
+
+
+def _number(ctx: _Ctx, table: Mapping[str, Any], key: str, header: str | None, occ: int, label: str, *,
+            nonnegative: bool) -> float:
+    value = table[key]
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise ctx.fail(f"`{key}` in {label} must be a number, got {value!r}", key, header, occ)
+    out = float(value)
+    if not math.isfinite(out):
+        raise ctx.fail(f"`{key}` in {label} must be finite, got {value!r}", key, header, occ)
+    if nonnegative and out < 0:
+        raise ctx.fail(f"`{key}` in {label} must be 0 or greater, got {value!r}", key, header, occ)
+    return out
+
+
+def _kind(ctx: _Ctx, table: Mapping[str, Any], header: str, occ: int, label: str) -> str | None:
+    if "kind" not in table:
+        return None
+    value = table["kind"]
+    if value not in KINDS:
+        raise ctx.fail(f"`kind` in {label} must be one of {', '.join(KINDS)}, got {value!r}", "kind", header, occ)
+    return str(value)
+
+
+def _tables(ctx: _Ctx, doc: Mapping[str, Any], key: str) -> list[Mapping[str, Any]]:
+    if key not in doc:
+        return []
+    value = doc[key]
+    if isinstance(value, Mapping):
+        raise ctx.fail(f"`{key}` must be an array of tables: write [[{key}]] (double brackets)", "", key, 0)
+    if not isinstance(value, list) or not all(isinstance(t, Mapping) for t in value):
+        raise ctx.fail(f"`{key}` must be written as [[{key}]] tables", key)
+    return value
+
+
+def parse_rules(text: str, *, source: str = "<rules>") -> Rules:
+    """Parse screening rules from TOML text.
+
+    Parameters
+    ----------
+    text : str
+        TOML text (see ``docs/screening-rules.md``).
+    source : str, optional
+        Name used in error messages (a path).
+
+    Returns
+    -------
+    Rules
+
+    Raises
+    ------
+    ProcedureError
+        For malformed TOML, unknown keys, wrong types, negative limits,
+        missing or repeated names; the message names the key and, where it can
+        be found, the line.
+
+    Examples
+    --------
+    >>> r = parse_rules('''
+    ... [recording]
+    ... name = "record"
+    ... level_fsh = 20
+    ... [[limit]]
+    ... name = "long"
+    ... quantity = "length_mm"
+    ... max = 10
+    ... ''')
+    >>> r.rule_names
+    ('record', 'long')
+    """
+    if not isinstance(text, str):
+        raise ParameterTypeError(f"`text` must be a str, got {type(text).__name__}")
+    ctx = _Ctx(text, source)
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ProcedureError(f"{source}: not valid TOML: {exc}") from None
+    _check_keys(ctx, doc, _TOP_KEYS, None, 0, "the top level")
+    name = _text(ctx, doc, "name", None, 0, "the top level", required=False)
+    description = _text(ctx, doc, "description", None, 0, "the top level", required=False)
+
+    recording = None
+    if "recording" in doc:
+        rec = doc["recording"]
+        if not isinstance(rec, Mapping):
+            raise ctx.fail("`recording` must be a table: write [recording] once", "recording")
+        label = "[recording]"
+        _check_keys(ctx, rec, _RECORDING_KEYS, "recording", 0, label)
+        rname = _text(ctx, rec, "name", "recording", 0, label, required=True)
+        has = [k for k in ("level_fsh", "level_db") if k in rec]
+        if len(has) != 1:
+            raise ctx.fail(f"{label} needs exactly one of `level_fsh` and `level_db`, has {has or 'neither'}", "",
+                           "recording", 0)
+        key = has[0]
+        value = _number(ctx, rec, key, "recording", 0, label, nonnegative=(key == "level_fsh"))
+        recording = RecordingLevel(
+            name=rname,
+            level_fsh=value if key == "level_fsh" else None,
+            level_db=value if key == "level_db" else None,
+            description=_text(ctx, rec, "description", "recording", 0, label, required=False),
+        )
+
+    limits = []
+    for occ, t in enumerate(_tables(ctx, doc, "limit")):
+        label = _where("limit", occ, True)
+        _check_keys(ctx, t, _LIMIT_KEYS, "limit", occ, label)
+        lname = _text(ctx, t, "name", "limit", occ, label, required=True)
+        if "quantity" not in t:
+            raise ctx.fail(f"{label} needs a `quantity`, one of {', '.join(QUANTITIES)}", "", "limit", occ)
+        q = t["quantity"]
+        if q not in QUANTITIES:
+            raise ctx.fail(f"`quantity` in {label} must be one of {', '.join(QUANTITIES)}, got {q!r}", "quantity",
+                           "limit", occ)
+        if "max" not in t:
+            raise ctx.fail(f"{label} needs a `max` (exceeded when {q} > max)", "", "limit", occ)
+        mx = _number(ctx, t, "max", "limit", occ, label, nonnegative=(q != "peak_db"))
+        limits.append(Limit(lname, str(q), mx, _kind(ctx, t, "limit", occ, label),
+                            _text(ctx, t, "description", "limit", occ, label, required=False)))
+
+    densities = []
+    for occ, t in enumerate(_tables(ctx, doc, "density")):
+        label = _where("density", occ, True)
+        _check_keys(ctx, t, _DENSITY_KEYS, "density", occ, label)
+        dname = _text(ctx, t, "name", "density", occ, label, required=True)
+        if "max_per_m2" not in t:
+            raise ctx.fail(f"{label} needs a `max_per_m2`", "", "density", occ)
+        mx = _number(ctx, t, "max_per_m2", "density", occ, label, nonnegative=True)
+        densities.append(DensityLimit(dname, mx, _kind(ctx, t, "density", occ, label),
+                                      _text(ctx, t, "description", "density", occ, label, required=False)))
+
+    rules = Rules(name, description, recording, tuple(limits), tuple(densities), source)
+    seen: set[str] = set()
+    for n in rules.rule_names:
+        if n in seen:
+            raise ctx.fail(f"rule name {n!r} is used twice; give every rule its own name")
+        seen.add(n)
+    if not rules.rule_names:
+        raise ctx.fail("the file defines no rule: add [recording], [[limit]] or [[density]] tables")
+    return rules
+
+
+def load_rules(path: str | os.PathLike[str]) -> Rules:
+    """Read and check a screening-rules TOML file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file.
+
+    Returns
+    -------
+    Rules
+
+    Raises
+    ------
+    FileFormatError
+        When the file cannot be read.
+    ProcedureError
+        When its content is malformed (see :func:`parse_rules`).
+    """
+    p = os.fspath(path)
+    try:
+        with open(p, "rb") as fh:
+            raw = fh.read()
+    except OSError as exc:
+        raise FileFormatError(f"cannot read the rules file `{p}`: {exc.strerror or exc}") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise ProcedureError(f"{p}: the rules file must be UTF-8 text") from None
+    return parse_rules(text, source=p)
+
+
+# --------------------------------------------------------------------------- screening
+
+
+def _record(ind: Any, k: int) -> Mapping[str, Any]:
+    if isinstance(ind, Mapping):
+        return ind
+    as_dict = getattr(ind, "as_dict", None)
+    if callable(as_dict):
+        return as_dict()
+    raise ParameterTypeError(
+        f"`indications[{k}]` must be a record (dict from size_indications) or an Indication, got {type(ind).__name__}"
+    )
+
+
+def _value(rec: Mapping[str, Any], quantity: str) -> float | None:
+    def num(key: str) -> float | None:
+        v = rec.get(key)
+        if v is None or isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+            return None
+        return float(v)
+
+    if quantity == "length_mm":
+        vals = [v for v in (num("length_scan_mm"), num("length_index_mm")) if v is not None]
+        return max(vals) if vals else None
+    if quantity == "length_20db_mm":
+        vals = [v for v in (num("length_scan_20db_mm"), num("length_index_20db_mm")) if v is not None]
+        return max(vals) if vals else None
+    if quantity == "backwall_loss_db" and rec.get("total_backwall_loss"):
+        return math.inf
+    return num(quantity)
+
+
+def _statement(exceeded: Iterable[str]) -> str:
+    names = list(exceeded)
+    return "; ".join(f"exceeds rule {n}" for n in names) if names else "within rules"
+
+
+def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float) -> ScreeningResult:
+    """Screen indications against rules.
+
+    Parameters
+    ----------
+    indications : iterable of dict or Indication
+        Records from :func:`ndtmap.indications.pipeline.size_indications` (or
+        :class:`~ndtmap.indications.detection.Indication` objects, which carry only
+        amplitude, position and detected area).
+    rules : Rules
+        From :func:`load_rules` or :func:`parse_rules`.
+    scanned_area_mm2 : float
+        Area scanned, mm^2 (> 0), for the density rules.
+
+    Returns
+    -------
+    ScreeningResult
+        Per indication and overall "exceeds rule <name>" or "within rules",
+        with :data:`ndtmap.CAUTION`.
+
+    Examples
+    --------
+    >>> rules = parse_rules('[[limit]]\\nname = "long"\\nquantity = "length_mm"\\nmax = 10')
+    >>> res = screen([{"id": 1, "kind": "amplitude", "length_scan_mm": 12.0}], rules, scanned_area_mm2=1e4)
+    >>> res.overall, res.indications[0].statement
+    ('exceeds rule long', 'exceeds rule long')
+    >>> "qualified personnel" in res.caution
+    True
+    """
+    if not isinstance(rules, Rules):
+        raise ParameterTypeError(f"`rules` must be Rules (from load_rules), got {type(rules).__name__}")
+    area = positive_float("scanned_area_mm2", scanned_area_mm2)
+    recs = [_record(ind, k) for k, ind in enumerate(indications)]
+    out: list[IndicationScreening] = []
+    all_exceeded: list[str] = []
+    recorded_recs: list[Mapping[str, Any]] = []
+    for k, rec in enumerate(recs):
+        ident = rec.get("id", k + 1)
+        kind = rec.get("kind", "amplitude")
+        flags = list(rec.get("flags") or [])
+        notes: list[str] = []
+        not_eval: list[str] = []
+        rl = rules.recording
+        if rl is not None and kind == "amplitude":
+            key, level = ("peak_fsh", rl.level_fsh) if rl.level_fsh is not None else ("peak_db", rl.level_db)
+            v = _value(rec, key)
+            if v is None:
+                not_eval.append(f"{rl.name}: no {key}")
+                notes.append(f"recording level {rl.name} not evaluated (no {key}); screened as recorded")
+            elif v < level:
+                out.append(IndicationScreening(int(ident), False, f"below recording level {rl.name}",
+                                               (), tuple(not_eval), tuple(notes)))
+                continue
+        recorded_recs.append(rec)
+        exceeded: list[str] = []
+        for lim in rules.limits:
+            if lim.kind is not None and lim.kind != kind:
+                continue
+            v = _value(rec, lim.quantity)
+            if v is None:
+                not_eval.append(f"{lim.name}: no {lim.quantity}")
+                continue
+            if v > lim.max:
+                exceeded.append(lim.name)
+            elif lim.quantity.startswith(("length", "area")) and "at_scan_edge" in flags:
+                notes.append(f"{lim.name}: {lim.quantity} is a lower bound (at_scan_edge)")
+            if lim.quantity.startswith(("length", "area")) and "saturated" in flags:
+                notes.append(f"{lim.name}: {lim.quantity} from a saturated peak is not valid")
+            if lim.quantity == "ers_mm" and "saturated" in flags:
+                notes.append(f"{lim.name}: ers_mm from a saturated peak is a lower bound")
+        statement = _statement(exceeded)
+        if not_eval:
+            statement += " (not evaluated: " + ", ".join(n.split(":")[0] for n in not_eval) + ")"
+        all_exceeded.extend(n for n in exceeded if n not in all_exceeded)
+        out.append(IndicationScreening(int(ident), True, statement, tuple(exceeded), tuple(not_eval), tuple(notes)))
+    densities: dict[str, float] = {}
+    for dl in rules.densities:
+        count = sum(1 for r in recorded_recs if dl.kind is None or r.get("kind", "amplitude") == dl.kind)
+        per_m2 = count / (area * 1e-6)
+        densities[dl.name] = per_m2
+        if per_m2 > dl.max_per_m2 and dl.name not in all_exceeded:
+            all_exceeded.append(dl.name)
+    return ScreeningResult(
+        indications=tuple(out),
+        exceeded=tuple(all_exceeded),
+        overall=_statement(all_exceeded),
+        densities_per_m2=densities,
+        scanned_area_mm2=area,
+        rules_name=rules.name,
+        caution=_caution(),
+    )

@@ -1,0 +1,3 @@
+"""ndtmap.physics."""
+
+__all__: list[str] = []

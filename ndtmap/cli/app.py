@@ -94,7 +94,7 @@ def _open_valid(path: Path, args: argparse.Namespace) -> Any:
 
 
 def cmd_map(args: argparse.Namespace) -> int:
-    from ndtmap.gates.evaluate import Gate
+    from ndtmap.gates import Gate
     from ndtmap.scans.maps import map_by_kind, map_dataset
 
     out = Path(args.output)

@@ -236,6 +236,80 @@ def surface_position_mm(
     return np.asarray(scan_mm, dtype=np.float64) + off + beam_direction * sn * np.asarray(sound_path, dtype=np.float64)
 
 
+@dataclass(frozen=True)
+class PartConstants:
+    """Velocity, beam angle, zero offset and time axis of a grid, and the one time -> depth mapping.
+
+    Every conversion between the recorded time axis and positions in the part
+    goes through the methods below (straight or angle beam in a flat part):
+    ``s = c (t - t0) / 2`` (:func:`sound_path_mm`), depth ``s cos(theta)``,
+    surface distance ``s sin(theta)``.
+
+    Examples
+    --------
+    >>> pc = PartConstants(5920.0, 0.0, 0.5, np.array([0.0, 1.0]), 1.0)
+    >>> round(float(pc.depth_mm(4.5)), 3), round(float(pc.time_us_at_depth(11.84)), 3)
+    (11.84, 4.5)
+    >>> round(pc.depth_per_us(), 3)        # mm of depth per us of pulse-echo time
+    2.96
+    """
+
+    velocity_m_s: float
+    beam_angle_deg: float
+    zero_offset_us: float
+    time_us: np.ndarray
+    dt_us: float
+
+    @property
+    def mm_per_us(self) -> float:
+        """Sound path per microsecond of pulse-echo time (half the velocity in mm/us)."""
+        return self.velocity_m_s * 1e-3 / 2.0
+
+    @property
+    def cos_theta(self) -> float:
+        return math.cos(math.radians(self.beam_angle_deg))
+
+    @property
+    def sin_theta(self) -> float:
+        return math.sin(math.radians(self.beam_angle_deg))
+
+    def depth_per_us(self) -> float:
+        """Depth in mm per us of pulse-echo time (for windows relative to an event)."""
+        return self.mm_per_us * self.cos_theta
+
+    def sound_path_mm(self, time_us: Any, *, from_us: Any = None) -> Any:
+        """Sound path in mm of echo times `time_us`, from pulse entry (or from the times `from_us`)."""
+        t0 = self.zero_offset_us if from_us is None else from_us
+        return self.mm_per_us * (time_us - t0)
+
+    def depth_mm(self, time_us: Any, *, from_us: Any = None) -> Any:
+        """Unfolded depth ``s cos(theta)`` in mm of echo times `time_us` (numbers, arrays or DataArrays)."""
+        return self.sound_path_mm(time_us, from_us=from_us) * self.cos_theta
+
+    def surface_distance_mm(self, time_us: Any, *, from_us: Any = None) -> Any:
+        """Surface distance ``s sin(theta)`` in mm of echo times `time_us`."""
+        return self.sound_path_mm(time_us, from_us=from_us) * self.sin_theta
+
+    def time_us_at_depth(self, depth_mm: Any) -> Any:
+        """Pulse-echo time in us of an echo from (unfolded) depth `depth_mm`: the inverse of :meth:`depth_mm`."""
+        return self.zero_offset_us + depth_mm / self.depth_per_us()
+
+    def record_depth_mm(self) -> tuple[float, float]:
+        """Depths in mm of the first and the last recorded sample (the first may be negative)."""
+        return float(self.depth_mm(self.time_us[0])), float(self.depth_mm(self.time_us[-1]))
+
+
+def part_constants(grid: xr.Dataset) -> PartConstants:
+    """Read the constants the geometry needs from a (validated) grid."""
+    return PartConstants(
+        velocity_m_s=float(grid_attr(grid, "velocity_m_s")),
+        beam_angle_deg=float(grid_attr(grid, "beam_angle_deg", 0.0)),
+        zero_offset_us=float(grid_attr(grid, "zero_offset_us", 0.0)),
+        time_us=np.asarray(grid["time"].values, dtype=np.float64),
+        dt_us=time_step_us(grid),
+    )
+
+
 def _axis(grid: xr.Dataset, values: np.ndarray, name: str, long_name: str) -> xr.DataArray:
     return xr.DataArray(
         values, dims=("time",), coords={"time": grid["time"]}, name=name,
@@ -256,7 +330,7 @@ def sound_path_axis(grid: xr.Dataset) -> xr.DataArray:
     """
     grid = check_grid(grid)
     pc = part_constants(grid)
-    return _axis(grid, pc.mm_per_us * (pc.time_us - pc.zero_offset_us), "sound_path", "sound path along the beam")
+    return _axis(grid, pc.sound_path_mm(pc.time_us), "sound_path", "sound path along the beam")
 
 
 def depth_axis(grid: xr.Dataset, *, fold: bool = False) -> xr.DataArray:
@@ -293,7 +367,7 @@ def depth_axis(grid: xr.Dataset, *, fold: bool = False) -> xr.DataArray:
     """
     grid = check_grid(grid)
     pc = part_constants(grid)
-    depth = pc.mm_per_us * (pc.time_us - pc.zero_offset_us) * pc.cos_theta
+    depth = pc.depth_mm(pc.time_us)
     if fold:
         thickness = grid.attrs.get("part_thickness_mm")
         if thickness is None:
@@ -316,40 +390,5 @@ def surface_distance_axis(grid: xr.Dataset) -> xr.DataArray:
     """
     grid = check_grid(grid)
     pc = part_constants(grid)
-    return _axis(grid, pc.mm_per_us * (pc.time_us - pc.zero_offset_us) * pc.sin_theta, "surface_distance",
+    return _axis(grid, pc.surface_distance_mm(pc.time_us), "surface_distance",
                  "surface distance from the beam exit point")
-
-
-@dataclass(frozen=True)
-class PartConstants:
-    """Velocity, beam angle, zero offset and time axis of a grid."""
-
-    velocity_m_s: float
-    beam_angle_deg: float
-    zero_offset_us: float
-    time_us: np.ndarray
-    dt_us: float
-
-    @property
-    def mm_per_us(self) -> float:
-        """Sound path per microsecond of pulse-echo time (half the velocity in mm/us)."""
-        return self.velocity_m_s * 1e-3 / 2.0
-
-    @property
-    def cos_theta(self) -> float:
-        return math.cos(math.radians(self.beam_angle_deg))
-
-    @property
-    def sin_theta(self) -> float:
-        return math.sin(math.radians(self.beam_angle_deg))
-
-
-def part_constants(grid: xr.Dataset) -> PartConstants:
-    """Read the constants the geometry needs from a (validated) grid."""
-    return PartConstants(
-        velocity_m_s=float(grid_attr(grid, "velocity_m_s")),
-        beam_angle_deg=float(grid_attr(grid, "beam_angle_deg", 0.0)),
-        zero_offset_us=float(grid_attr(grid, "zero_offset_us", 0.0)),
-        time_us=np.asarray(grid["time"].values, dtype=np.float64),
-        dt_us=time_step_us(grid),
-    )

@@ -35,7 +35,7 @@ import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
 from ndtmap.errors import ParameterError, ParameterTypeError, SizingError
-from ndtmap.gates.evaluate import Gate
+from ndtmap.gates import Gate
 from ndtmap.indications.detection import Indication
 from ndtmap.indications.sizing import drop_factor, drop_length, level_length
 from ndtmap.plot.style import ACCENTS, FONT_FAMILY, color_scale_for, label_from_attrs

@@ -67,7 +67,7 @@ import xarray as xr
 from ndtmap import CAUTION
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float
 from ndtmap.errors import NdtmapError, ParameterError, ProcedureError
-from ndtmap.gates.evaluate import Gate
+from ndtmap.gates import Gate
 from ndtmap.grid.schema import grid_attr, time_step_us
 from ndtmap.indications.echoes import echo_half_length_mm
 
@@ -660,7 +660,7 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         For gates outside the record, rules that cannot be read, and other
         problems of the procedure on this grid.
     """
-    from ndtmap.gates.evaluate import evaluate_gates
+    from ndtmap.gates import evaluate_gates
     from ndtmap.grid.calibration import calibrate
     from ndtmap.indications.pipeline import scanned_area_mm2, size_indications
     from ndtmap.indications.rules import load_rules, screen

@@ -413,7 +413,7 @@ def _dgs_family(probe_mm: float, ers: Sequence[float]) -> list[float]:
 
 def _part_figures(analysis: Any, kinds: Sequence[str], part: str) -> tuple[list[tuple[str, Any, str, str]], list[str]]:
     """Build the figures of one part: (kind, figure, title, caption) and notes on figures not made."""
-    from ndtmap.gates.evaluate import evaluate_gates
+    from ndtmap.gates import evaluate_gates
     from ndtmap.grid.schema import grid_attr
     from ndtmap.indications.dgs import dgs_diagram
     from ndtmap.plot.figures import (

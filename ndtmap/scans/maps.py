@@ -33,7 +33,7 @@ import xarray as xr
 from ndtmap._shared.arrays import is_lazy, netcdf_safe, result_attrs
 from ndtmap._shared.validate import interval, one_of, positive_float
 from ndtmap.errors import ParameterError, ParameterTypeError
-from ndtmap.gates.evaluate import Gate, _Evaluator, _gate_table, evaluate_gate
+from ndtmap.gates import Gate, evaluate_gate, evaluate_gates
 from ndtmap.grid.geometry import depth_axis, leg_and_folded_depth, part_constants, sound_path_axis
 from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import check_grid, missing_ascans
@@ -290,23 +290,15 @@ def thickness_map(
         if method != "first-echo":
             raise ParameterError("`result` can stand in only for method 'first-echo'; leave it out")
         res = _gate_result(grid, backwall_gate, result, "time_us", detect)
-        pc = part_constants(grid)
-        thickness = pc.mm_per_us * (res["time_us"] - pc.zero_offset_us) * pc.cos_theta
-        thickness = thickness.where(thickness > 0)
+        thickness = part_constants(grid).depth_mm(res["time_us"])
     else:
         extra = [] if reference_gate is None else [reference_gate]
         others_list = list(others.values()) if isinstance(others, Mapping) else list(others)
-        table = _gate_table(backwall_gate, [*extra, *others_list])
-        ev = _Evaluator(grid, table, detect, None)
-        bw = ev.evaluate(backwall_gate.name)
-        pc = ev.pc
-        if reference_gate is None:
-            t_ref: Any = pc.zero_offset_us
-        else:
-            t_ref = ev.evaluate(reference_gate.name).time
-        thickness = pc.mm_per_us * (bw.time - t_ref) * pc.cos_theta
-        thickness = thickness.where(thickness > 0)
-        res = ev.dataset(backwall_gate.name, depth_from="entry")
+        results = evaluate_gates(grid, [backwall_gate, *extra, *others_list], detect=detect, depth_from="entry")
+        res = results[backwall_gate.name]
+        t_ref = None if reference_gate is None else results[reference_gate.name]["time_us"]
+        thickness = part_constants(grid).depth_mm(res["time_us"], from_us=t_ref)
+    thickness = thickness.where(thickness > 0)
     params = {"method": method, "backwall_gate": backwall_gate.to_dict(),
               "reference_gate": reference_gate.to_dict() if reference_gate is not None else None, "detect": detect}
     ref_attrs = {"reference_gate": json.dumps(reference_gate.to_dict())} if reference_gate is not None else {}

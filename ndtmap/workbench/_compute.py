@@ -5,7 +5,7 @@ The crop
     window (and, for a following gate, inside the windows of the gates it
     follows), so the workbench evaluates gates on the grid cut to the time
     span that the gate chain can reach (from
-    :meth:`ndtmap.gates.evaluate._Evaluator.bounds`, which also checks the windows
+    :func:`ndtmap.gates.gate_time_span_us`, which also checks the windows
     against the full record), plus two samples each side. The missing-A-scan
     mask of the full grid is carried into the cut grid as its ``missing``
     variable, so an A-scan with a NaN outside the window stays missing. The
@@ -24,15 +24,14 @@ from __future__ import annotations
 import contextlib
 import math
 import uuid
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Iterator
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
 from ndtmap._shared.arrays import is_lazy
-from ndtmap.errors import GateError
-from ndtmap.gates.evaluate import Gate
+from ndtmap.gates import KERNEL_ENV, Gate, gate_time_span_us
 
 #: A function told the fraction of work done (0..1, or None when unknown) and what is being done.
 Progress = Callable[[float | None, str], None]
@@ -43,30 +42,6 @@ PARALLEL_MIN_SAMPLES = 4_000_000
 SLAB_SAMPLES = 4_000_000
 #: Samples kept beyond the reach of the gate windows on each side of the cut.
 CROP_MARGIN_SAMPLES = 2
-
-
-def gate_chain(gates: Mapping[str, Gate], name: str) -> list[Gate]:
-    """The gate called `name` followed by the gates it follows, nearest first.
-
-    Raises
-    ------
-    GateError
-        An unknown gate, a followed gate that is not defined, or a cycle.
-    """
-    if name not in gates:
-        raise GateError(f"no gate named {name!r}; gates: {list(gates)}")
-    chain = [gates[name]]
-    seen = {name}
-    cur = gates[name]
-    while cur.follows is not None:
-        if cur.follows not in gates:
-            raise GateError(f"gate {cur.name!r} follows {cur.follows!r}, which is not defined; gates: {list(gates)}")
-        if cur.follows in seen:
-            raise GateError(f"gates {sorted(seen)} follow each other in a circle; make one of them stand alone")
-        seen.add(cur.follows)
-        cur = gates[cur.follows]
-        chain.append(cur)
-    return chain
 
 
 def chain_key(chain: list[Gate], detect: str) -> tuple[Any, ...]:
@@ -81,13 +56,9 @@ def chain_bounds_us(grid: xr.Dataset, chain: list[Gate], detect: str) -> tuple[f
     ------
     GateError
         When a window lies outside the record (the message of
-        :mod:`ndtmap.gates.evaluate`).
+        :func:`ndtmap.gates.gate_time_span_us`).
     """
-    from ndtmap.gates.evaluate import _Evaluator  # the authoritative window logic, also used by ndtmap.maps
-
-    table = {g.name: g for g in chain}
-    ev = _Evaluator(grid, table, detect, None)
-    spans = [ev.bounds(g.name) for g in chain]
+    spans = [gate_time_span_us(grid, chain, g.name, detect=detect) for g in chain]
     return min(s[0] for s in spans), max(s[1] for s in spans)
 
 
@@ -125,8 +96,6 @@ def in_slabs(grid: xr.Dataset) -> xr.Dataset:
     between the cores itself, and slabs would only add dask's task overhead.
     """
     import os
-
-    from ndtmap.gates.evaluate import KERNEL_ENV
 
     if is_lazy(grid) or os.environ.get(KERNEL_ENV, "compiled") != "numpy":
         return grid

@@ -53,7 +53,7 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.arrays import is_lazy
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float
 from ndtmap.errors import GateError, NdtmapError, ParameterError, ParameterTypeError, SizingError
-from ndtmap.gates.evaluate import GATE_UNITS, Gate, evaluate_gate, evaluate_gates, gate_window_us
+from ndtmap.gates import GATE_UNITS, Gate, evaluate_gate, evaluate_gates, gate_chain, gate_window_us
 from ndtmap.grid.geometry import part_constants
 from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import ascan_in_fsh, check_grid, grid_attr, missing_ascans
@@ -286,7 +286,7 @@ class WorkbenchState:
                     "threshold is also its detection level"
                 )
         for g in self._gates.values():  # every window must fit the record
-            cx.chain_bounds_us(self.grid, cx.gate_chain(self._gates, g.name), "rectified")
+            cx.chain_bounds_us(self.grid, gate_chain(self._gates, g.name), "rectified")
         self.active_gate = proc.detection_gate
         self.map_kind = "amplitude"
         self.tool = "inspect"
@@ -350,7 +350,7 @@ class WorkbenchState:
         names = [changed] if changed is not None else []
         names += [g.name for g in table.values() if g.name != changed]
         for name in names:
-            chain = cx.gate_chain(table, name)
+            chain = gate_chain(table, name)
             if changed is None or any(g.name == changed for g in chain):
                 cx.chain_bounds_us(self.grid, chain, "rectified")
 
@@ -537,7 +537,7 @@ class WorkbenchState:
 
     def gate_key(self, name: str | None = None) -> tuple[Any, ...]:
         """Cache key of a gate: its definition, those of the gates it follows, the detection signal."""
-        return cx.chain_key(cx.gate_chain(self._gates, self.gate(name).name), self.detect)
+        return cx.chain_key(gate_chain(self._gates, self.gate(name).name), self.detect)
 
     def has_gate_result(self, name: str | None = None) -> bool:
         """True when the result of the gate is in the cache (no computation needed)."""
@@ -546,7 +546,7 @@ class WorkbenchState:
     def gate_result(self, name: str | None = None, *, progress: cx.Progress | None = None) -> xr.Dataset:
         """The gate's result on every A-scan (:func:`ndtmap.gates.evaluate.evaluate_gate`), in memory, cached."""
         gate = self.gate(name)
-        chain = cx.gate_chain(self._gates, gate.name)
+        chain = gate_chain(self._gates, gate.name)
         key = cx.chain_key(chain, self.detect)
         with self._lock:
             if key in self._cache:

@@ -39,7 +39,7 @@ import xarray as xr
 
 from ndtmap._shared.arrays import is_lazy
 from ndtmap.errors import NdtmapError, ParameterTypeError
-from ndtmap.gates.evaluate import GATE_MODES
+from ndtmap.gates import GATE_MODES
 from ndtmap.workbench import plots
 from ndtmap.workbench._tasks import TaskRunner
 from ndtmap.workbench.state import MAP_KINDS, WorkbenchState, indication_details, indication_label

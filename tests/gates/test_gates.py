@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 
 from ndtmap.errors import GateError, ParameterTypeError
 from ndtmap.gates import Gate, evaluate_gate, evaluate_gates, gate_window_us
-from ndtmap.gates.evaluate import _gate_kernel
+from ndtmap.gates.kernels import reference_gate_kernel
 from ndtmap.grid import make_grid, read_provenance
 from ndtmap.scans import depth_map
 from ndtmap.signal import dac_curve
@@ -119,7 +119,7 @@ def test_first_crossing_amplitude_is_the_peak_of_the_crossing_echo():
 
 def test_kernel_respects_per_ascan_windows():
     x = np.tile(np.arange(10, dtype=float), (3, 1))
-    peak, tpk, tcr, _ = _gate_kernel(x, 0.0, 1.0, 4.5, 1, i_start=np.array([0.0, 2.0, np.nan]),
+    peak, tpk, tcr, _ = reference_gate_kernel(x, 0.0, 1.0, 4.5, 1, i_start=np.array([0.0, 2.0, np.nan]),
                                      i_end=np.array([3.0, 6.0, 5.0]))
     np.testing.assert_array_equal(peak[:2], [3.0, 6.0])
     assert np.isnan(tcr[0]) and tcr[1] == pytest.approx(4.5)
@@ -363,12 +363,12 @@ def test_gate_properties(trace, lo, width, thr, mode, missing):
 
 def test_blocked_kernel_equals_one_pass(monkeypatch):
     # the in-memory path splits large grids into slabs; the answer must not change
-    import ndtmap.gates.evaluate as gates_module
+    import ndtmap.gates.kernels as gates_module
 
     g = plate_grid(12.3, scan_mm=np.arange(7.0), index_mm=np.arange(5.0))
     gates = [Gate("bw1", 10.0, 14.0), Gate("bw2", 10.0, 14.0, follows="bw1", mode="first-crossing")]
     whole = evaluate_gates(g, gates)
-    monkeypatch.setattr(gates_module, "_BLOCK_ELEMENTS", 700)  # a few A-scans per slab
+    monkeypatch.setattr(gates_module, "BLOCK_ELEMENTS", 700)  # a few A-scans per slab
     sliced = evaluate_gates(g, gates)
     for name in whole:
         xr.testing.assert_identical(whole[name].drop_attrs(), sliced[name].drop_attrs())

@@ -1,6 +1,6 @@
 """The compiled gate kernel against the numpy reference kernel and against plain numpy definitions.
 
-The reference kernel (``ndtmap.gates.evaluate._gate_kernel``) is itself checked against exact sub-sample formulas in
+The reference kernel (``ndtmap.gates.kernels.reference_gate_kernel``) is itself checked against exact sub-sample formulas in
 tests/test_gates.py; here the compiled kernel must give the same numbers, bit for bit, on random data with the
 awkward cases: NaN A-scans, the int16 value -32768, windows at the ends of the record, per-A-scan windows.
 """
@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from ndtmap.errors import ParameterError
 from ndtmap.gates import Gate, evaluate_gate, evaluate_gates
 from ndtmap.gates import _compiled as _fastgate
-from ndtmap.gates.evaluate import _gate_kernel
+from ndtmap.gates.kernels import reference_gate_kernel
 from ndtmap.grid import make_grid, missing_ascans, read_provenance
 from ndtmap.scans import amplitude_map, backwall_loss_map, depth_map, thickness_map
 
@@ -33,7 +33,7 @@ def reference(x, base, length, starts, ends, *, t0, dt, thr, hold, scale, rectif
         f = part.astype(np.float32)
     if rectify:
         f = np.abs(f)
-    return _gate_kernel(f, t0, dt, thr, hold, i_start=starts, i_end=ends)
+    return reference_gate_kernel(f, t0, dt, thr, hold, i_start=starts, i_end=ends)
 
 
 def assert_same_result(a, b):
@@ -271,15 +271,15 @@ def test_threads_split_the_ascans_without_changing_a_number(monkeypatch):
 
 def test_compiled_kernel_inside_apply_ufunc_parallelized():
     # the kernel as a plain dask="parallelized" ufunc on dask chunks gives the in-memory numbers
-    from ndtmap.gates.evaluate import _gate_kernel_compiled
+    from ndtmap.gates.kernels import gate_kernel_compiled
 
     g = int16_grid()
     kw = dict(t0_us=0.0, dt_us=0.02, threshold=20.0, hold=10, base=0, length=g.sizes["time"], start=0.0,
               end=float(g.sizes["time"] - 1), scale=100.0 / 32767, rectify=True, check_record=False)
-    lazy = xr.apply_ufunc(_gate_kernel_compiled, g.ascan.chunk({"scan": 2}), input_core_dims=[["time"]],
+    lazy = xr.apply_ufunc(gate_kernel_compiled, g.ascan.chunk({"scan": 2}), input_core_dims=[["time"]],
                           output_core_dims=[[], [], [], []], kwargs=dict(kw), dask="parallelized",
                           output_dtypes=[np.float64] * 4)
-    eager = _gate_kernel_compiled(g.ascan.values, **dict(kw))
+    eager = gate_kernel_compiled(g.ascan.values, **dict(kw))
     for a, b in zip(lazy, eager, strict=True):
         assert a.chunks is not None
         np.testing.assert_array_equal(a.values, b)

@@ -94,7 +94,7 @@ def main() -> None:
 
     flaw = Gate("flaw", 2.0, 17.0, threshold_fsh=20.0)
     backwall = Gate("backwall", 17.0, 23.0, threshold_fsh=20.0)
-    proc = Procedure("benchmark", (flaw, backwall), "flaw", threshold_fsh=20.0, backwall_gate="backwall")
+    proc = Procedure("benchmark", (flaw, backwall), "flaw", backwall_gate="backwall")
     state = WorkbenchState(grid, procedure=proc)
     t0 = time.perf_counter()
     state.map()

@@ -94,7 +94,7 @@ def _open_valid(path: Path, args: argparse.Namespace) -> Any:
 
 
 def cmd_map(args: argparse.Namespace) -> int:
-    from ndtmap.gates import Gate
+    from ndtmap.gates import DEFAULT_THRESHOLD_FSH, Gate
     from ndtmap.scans.maps import map_by_kind, map_dataset
 
     out = Path(args.output)
@@ -103,7 +103,7 @@ def cmd_map(args: argparse.Namespace) -> int:
         raise NdtmapError(f"`-o` must end in .nc, .png, .svg, .pdf or .html, got {str(out)!r}")
     grid = _open_valid(args.path, args)
     start, end = args.gate_mm
-    threshold = 20.0 if args.threshold_fsh is None else args.threshold_fsh
+    threshold = DEFAULT_THRESHOLD_FSH if args.threshold_fsh is None else args.threshold_fsh
     gate = Gate("gate", start, end, unit="mm", threshold_fsh=threshold, mode=args.mode)
     options: dict[str, Any] = {"detect": args.detect}
     if args.kind == "thickness":
@@ -176,10 +176,7 @@ def cmd_indications(args: argparse.Namespace) -> int:
     else:
         doc = analysis.indications_document()
         gate = doc["gate"]
-        if procedure.threshold_fsh is not None:
-            level = f"{procedure.threshold_fsh:g} %FSH"
-        else:
-            level = f"{procedure.threshold_db:g} dB re {procedure.reference}"
+        level = procedure.detection_level
         print(
             f"{args.path}: {len(analysis.indications)} indication(s); gate {gate['start']:g}-{gate['end']:g} "
             f"{gate['unit']}, threshold {level}"

@@ -7,10 +7,10 @@ report shows. The same procedure file drives the command line
 (``ndtmap indications``, ``ndtmap report``), the notebooks and the
 workbench, which can save its current settings as one.
 
-The file format (``format = "ndtmap-procedure 1"``)::
+The file format (``format = "ndtmap-procedure 2"``; files of format 1 are read too)::
 
     [procedure]
-    format = "ndtmap-procedure 1"
+    format = "ndtmap-procedure 2"
     name = "Plate lamination survey"
     description = "..."
 
@@ -23,13 +23,12 @@ The file format (``format = "ndtmap-procedure 1"``)::
     start = 1.5              # in `unit`: depth mm (or time us)
     end = 22.0
     unit = "mm"
-    threshold_fsh = 20.0
-    mode = "peak"            # or "first-crossing"
+    threshold_fsh = 20.0     # the gate's detection level; or threshold_db = -12.0 with
+    mode = "peak"            # reference = "backwall" (the nominal back-wall echo) or a level in %FSH
     # follows = "interface"  # window relative to another gate's event
 
     [detection]
-    gate = "flaw"            # the gate whose amplitude map is searched
-    threshold_fsh = 20.0     # or threshold_db = -12.0 with reference = "backwall" or a level in %FSH
+    gate = "flaw"            # the gate whose amplitude map is searched, at that gate's level
     min_area_mm2 = 4.0
     min_positions = 1
     detect = "rectified"     # or "envelope"
@@ -48,11 +47,16 @@ The file format (``format = "ndtmap-procedure 1"``)::
 
     [figures]
     include = ["amplitude", "depth", "backwall_loss", "thickness", "bscan", "dscan", "ascan", "dgs"]
+
+The detection level is the detection gate's own level (:class:`ndtmap.gates.Gate`):
+one number per gate, nowhere else. Format 1 stated it a second time in
+``[detection]`` (``threshold_fsh``, or ``threshold_db`` with ``reference``);
+such a file is read by moving that level onto the detection gate, which is
+what the detection used.
 """
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import tomllib
@@ -62,12 +66,13 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import tomli_w
 import xarray as xr
 
 from ndtmap import CAUTION
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float
 from ndtmap.errors import NdtmapError, ParameterError, ProcedureError
-from ndtmap.gates import Gate
+from ndtmap.gates import Gate, evaluate_gates, gate_chain
 from ndtmap.grid.schema import grid_attr, time_step_us
 from ndtmap.indications.echoes import echo_half_length_mm
 
@@ -84,7 +89,9 @@ __all__ = [
     "run_procedure",
 ]
 
-PROCEDURE_FORMAT = "ndtmap-procedure 1"
+PROCEDURE_FORMAT = "ndtmap-procedure 2"
+#: Earlier formats this release still reads.
+READABLE_FORMATS = ("ndtmap-procedure 1", PROCEDURE_FORMAT)
 FIGURE_KINDS = ("amplitude", "depth", "backwall_loss", "thickness", "bscan", "dscan", "ascan", "dgs")
 DETECT_KINDS = ("rectified", "envelope")
 EDGE_RULES = ("first", "outermost")
@@ -106,13 +113,9 @@ class Procedure:
     gates : tuple of Gate
         All gates, each named.
     detection_gate : str
-        Name of the gate whose amplitude map is searched for indications.
-    threshold_fsh : float, optional
-        Detection threshold in %FSH.
-    threshold_db : float, optional
-        Detection threshold in dB re `reference` (instead of `threshold_fsh`).
-    reference : {'backwall'} or float, optional
-        Reference of `threshold_db`: the nominal back-wall echo or a level in %FSH.
+        Name of the gate whose amplitude map is searched for indications, at
+        that gate's level (its ``threshold_fsh``, or ``threshold_db`` re a
+        reference: :class:`ndtmap.gates.Gate`).
     backwall_gate : str, optional
         Name of the back-wall gate (back-wall loss, thickness, DGS reference).
     backwall_nominal_fsh : float, optional
@@ -144,9 +147,6 @@ class Procedure:
     name: str
     gates: tuple[Gate, ...]
     detection_gate: str
-    threshold_fsh: float | None = None
-    threshold_db: float | None = None
-    reference: str | float | None = None
     backwall_gate: str | None = None
     backwall_nominal_fsh: float | None = None
     backwall_loss_threshold_db: float | None = None
@@ -180,28 +180,17 @@ class Procedure:
         if self.backwall_gate is not None and self.backwall_gate not in names:
             raise ProcedureError(f"`backwall.gate` {self.backwall_gate!r} is not one of the gates {names}")
         for g in gates:
-            if g.follows is not None and g.follows not in names:
-                raise ProcedureError(f"gate {g.name!r} follows {g.follows!r}, which is not one of the gates {names}")
-        if (self.threshold_fsh is None) == (self.threshold_db is None):
-            raise ProcedureError("give exactly one of `detection.threshold_fsh` and `detection.threshold_db`")
-        if self.threshold_fsh is not None:
-            object.__setattr__(
-                self, "threshold_fsh", _wrap(nonnegative_float, "detection.threshold_fsh", self.threshold_fsh)
+            try:
+                gate_chain(gates, g.name)
+            except NdtmapError as exc:
+                raise ProcedureError(str(exc)) from None
+        level_gates = [g.name for g in gates if g.reference == "backwall"]
+        if level_gates and self.backwall_gate is None:
+            raise ProcedureError(
+                f"gate(s) {level_gates} have their level in dB re the back wall; the procedure needs a [backwall] gate"
             )
-        if self.threshold_db is not None:
-            object.__setattr__(self, "threshold_db", _wrap(finite_float, "detection.threshold_db", self.threshold_db))
-            ref = self.reference
-            if ref is None:
-                raise ProcedureError(
-                    "`detection.threshold_db` needs `detection.reference` ('backwall' or a %FSH level)"
-                )
-            if isinstance(ref, str):
-                if ref != "backwall":
-                    raise ProcedureError(f"`detection.reference` must be 'backwall' or a number in %FSH, got {ref!r}")
-                if self.backwall_gate is None:
-                    raise ProcedureError("`detection.reference = 'backwall'` needs a [backwall] gate")
-            else:
-                object.__setattr__(self, "reference", _wrap(positive_float, "detection.reference", ref))
+        if self.backwall_gate in level_gates:
+            raise ProcedureError(f"the back-wall gate {self.backwall_gate!r} cannot have its level re the back wall")
         for name in ("backwall_nominal_fsh",):
             if getattr(self, name) is not None:
                 object.__setattr__(self, name, _wrap(positive_float, name, getattr(self, name)))
@@ -244,6 +233,11 @@ class Procedure:
                 return g
         raise ProcedureError(f"no gate named {name!r}; gates: {[g.name for g in self.gates]}")
 
+    @property
+    def detection_level(self) -> str:
+        """The detection level for people, from the detection gate (e.g. ``'20 %FSH'``)."""
+        return self.gate(self.detection_gate).level_text()
+
     def with_gate(self, gate: Gate) -> Procedure:
         """A copy with `gate` replacing the gate of the same name (or added)."""
         gates = [gate if g.name == gate.name else g for g in self.gates]
@@ -277,13 +271,8 @@ class Procedure:
         }
         if cal:
             doc["calibration"] = cal
-        doc["gate"] = [{k: v for k, v in g.to_dict().items() if v is not None} for g in self.gates]
+        doc["gate"] = [_gate_entry(g) for g in self.gates]
         det: dict[str, Any] = {"gate": self.detection_gate}
-        if self.threshold_fsh is not None:
-            det["threshold_fsh"] = self.threshold_fsh
-        else:
-            det["threshold_db"] = self.threshold_db
-            det["reference"] = self.reference
         det.update(min_area_mm2=self.min_area_mm2, min_positions=self.min_positions, detect=self.detect)
         doc["detection"] = det
         if self.backwall_gate is not None:
@@ -313,13 +302,53 @@ def _wrap(func: Any, name: str, value: Any, *args: Any) -> Any:
 _SECTIONS = {
     "procedure": {"format", "name", "description", "first_look"},
     "calibration": {"velocity_m_s", "zero_offset_us"},
-    "gate": {"name", "start", "end", "unit", "threshold_fsh", "mode", "follows"},
-    "detection": {"gate", "threshold_fsh", "threshold_db", "reference", "min_area_mm2", "min_positions", "detect"},
+    "gate": {"name", "start", "end", "unit", "threshold_fsh", "mode", "follows", "threshold_db", "reference"},
+    "detection": {"gate", "min_area_mm2", "min_positions", "detect"},
     "backwall": {"gate", "nominal_fsh", "loss_threshold_db"},
     "sizing": {"edge", "transfer_correction_db"},
     "screening": {"rules"},
     "figures": {"include"},
 }
+
+
+_LEGACY_LEVEL_KEYS = ("threshold_fsh", "threshold_db", "reference")
+
+
+def _legacy_detection_level(doc: dict[str, Any], fmt: str | None, source: str) -> dict[str, Any] | None:
+    """The level a format-1 file gives in [detection] (removed from `doc`), or None.
+
+    Format 1 stated the detection level a second time in [detection]; the
+    detection used that value, so it becomes the detection gate's level.
+    """
+    det = doc.get("detection")
+    if not isinstance(det, dict):
+        return None
+    found = {k: det.pop(k) for k in _LEGACY_LEVEL_KEYS if k in det}
+    if not found:
+        return None
+    if fmt == PROCEDURE_FORMAT:
+        raise ProcedureError(
+            f"{source}: [detection] {sorted(found)}: in format {PROCEDURE_FORMAT!r} the detection level is the "
+            "detection gate's own `threshold_fsh` (or `threshold_db` with `reference`); move it to that [[gate]]"
+        )
+    if "threshold_fsh" in found:
+        if "threshold_db" in found:
+            raise ProcedureError(f"{source}: give only one of `detection.threshold_fsh` and `detection.threshold_db`")
+        return {"threshold_fsh": found["threshold_fsh"], "threshold_db": None, "reference": None}
+    if "threshold_db" not in found:
+        raise ProcedureError(f"{source}: `detection.reference` is used only with `detection.threshold_db`")
+    return {"threshold_fsh": None, "threshold_db": found["threshold_db"], "reference": found.get("reference")}
+
+
+def _gate_from_entry(entry: Any, level: dict[str, Any] | None) -> Gate:
+    if not isinstance(entry, dict):
+        raise ProcedureError("[[gate]] must be a table")
+    return Gate.from_dict({**entry, **level} if level else entry)
+
+
+def _gate_entry(gate: Gate) -> dict[str, Any]:
+    """A gate as written to a procedure file (no empty fields)."""
+    return {k: v for k, v in gate.to_dict().items() if v is not None}
 
 
 def parse_procedure(text: str, *, source: str = "<procedure>", base_dir: str | None = None) -> Procedure:
@@ -351,12 +380,12 @@ def parse_procedure(text: str, *, source: str = "<procedure>", base_dir: str | N
     ... name = "flaw"
     ... start = 2.0
     ... end = 20.0
+    ... threshold_fsh = 25.0
     ... [detection]
     ... gate = "flaw"
-    ... threshold_fsh = 20.0
     ... ''')
-    >>> p.gate("flaw").end, p.threshold_fsh
-    (20.0, 20.0)
+    >>> p.gate("flaw").end, p.detection_level
+    (20.0, '25 %FSH')
     """
     try:
         doc = tomllib.loads(text)
@@ -365,6 +394,11 @@ def parse_procedure(text: str, *, source: str = "<procedure>", base_dir: str | N
     unknown = sorted(set(doc) - set(_SECTIONS))
     if unknown:
         raise ProcedureError(f"{source}: unknown section(s) {unknown}; known: {sorted(_SECTIONS)}")
+    meta = doc.get("procedure", {})
+    fmt = meta.get("format") if isinstance(meta, dict) else None
+    if fmt is not None and fmt not in READABLE_FORMATS:
+        raise ProcedureError(f"{source}: format {fmt!r} is not supported; this release reads {list(READABLE_FORMATS)}")
+    legacy_level = _legacy_detection_level(doc, fmt, source)
     for section, keys in _SECTIONS.items():
         if section not in doc:
             continue
@@ -377,19 +411,16 @@ def parse_procedure(text: str, *, source: str = "<procedure>", base_dir: str | N
             bad = sorted(set(t) - keys)
             if bad:
                 raise ProcedureError(f"{source}: unknown key(s) {bad} in [{section}]; known: {sorted(keys)}")
-    meta = doc.get("procedure", {})
-    fmt = meta.get("format", PROCEDURE_FORMAT)
-    if fmt != PROCEDURE_FORMAT:
-        raise ProcedureError(f"{source}: format {fmt!r} is not supported; this release reads {PROCEDURE_FORMAT!r}")
     if "gate" not in doc:
         raise ProcedureError(f"{source}: no [[gate]] table; a procedure needs at least one gate")
-    try:
-        gates = tuple(Gate.from_dict(g) for g in doc["gate"])
-    except NdtmapError as exc:
-        raise ProcedureError(f"{source}: {exc}") from None
     det = doc.get("detection")
     if det is None or "gate" not in det:
         raise ProcedureError(f'{source}: [detection] with `gate = "<name>"` is required')
+    try:
+        gates = tuple(_gate_from_entry(g, legacy_level if g.get("name") == det["gate"] else None)
+                      for g in doc["gate"])
+    except NdtmapError as exc:
+        raise ProcedureError(f"{source}: {exc}") from None
     bw = doc.get("backwall", {})
     cal = doc.get("calibration", {})
     sizing = doc.get("sizing", {})
@@ -403,9 +434,6 @@ def parse_procedure(text: str, *, source: str = "<procedure>", base_dir: str | N
             first_look=bool(meta.get("first_look", False)),
             gates=gates,
             detection_gate=det["gate"],
-            threshold_fsh=det.get("threshold_fsh"),
-            threshold_db=det.get("threshold_db"),
-            reference=det.get("reference"),
             min_area_mm2=det.get("min_area_mm2", 0.0),
             min_positions=det.get("min_positions", 1),
             detect=det.get("detect", "rectified"),
@@ -444,41 +472,30 @@ def load_procedure(path: str | os.PathLike[str]) -> Procedure:
     return parse_procedure(text, source=str(p), base_dir=str(p.resolve().parent))
 
 
-def _toml_value(v: Any) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, int):
-        return str(v)
-    if isinstance(v, float):
-        if not math.isfinite(v):
-            raise ProcedureError(f"cannot write the non-finite number {v!r} to a procedure file")
-        return repr(float(v))
-    if isinstance(v, str):
-        return json.dumps(v, ensure_ascii=False)
-    if isinstance(v, list | tuple):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
-    raise ProcedureError(f"cannot write {v!r} ({type(v).__name__}) to a procedure file")
+def _finite_numbers(value: Any, where: str) -> None:
+    """Refuse NaN and infinities, which a procedure file cannot hold meaningfully."""
+    if isinstance(value, float) and not math.isfinite(value):
+        raise ProcedureError(f"cannot write the non-finite number {value!r} ({where}) to a procedure file")
+    if isinstance(value, dict):
+        for k, v in value.items():
+            _finite_numbers(v, f"{where}.{k}")
+    elif isinstance(value, list | tuple):
+        for v in value:
+            _finite_numbers(v, where)
 
 
 def procedure_to_toml(procedure: Procedure) -> str:
-    """The procedure as TOML text that :func:`parse_procedure` reads back unchanged."""
+    """The procedure as TOML text that :func:`parse_procedure` reads back unchanged.
+
+    Examples
+    --------
+    >>> p = Procedure("survey", (Gate("flaw", 2.0, 20.0, threshold_fsh=25.0),), "flaw")
+    >>> parse_procedure(procedure_to_toml(p)) == p
+    True
+    """
     doc = procedure.to_dict()
-    lines = ["# ndtmap analysis procedure", ""]
-    for section in ("procedure", "calibration"):
-        if section in doc:
-            lines.append(f"[{section}]")
-            lines += [f"{k} = {_toml_value(v)}" for k, v in doc[section].items()]
-            lines.append("")
-    for g in doc["gate"]:
-        lines.append("[[gate]]")
-        lines += [f"{k} = {_toml_value(v)}" for k, v in g.items()]
-        lines.append("")
-    for section in ("detection", "backwall", "sizing", "screening", "figures"):
-        if section in doc:
-            lines.append(f"[{section}]")
-            lines += [f"{k} = {_toml_value(v)}" for k, v in doc[section].items()]
-            lines.append("")
-    return "\n".join(lines)
+    _finite_numbers(doc, "procedure")
+    return "# ndtmap analysis procedure\n\n" + tomli_w.dumps(doc)
 
 
 def save_procedure(procedure: Procedure, path: str | os.PathLike[str]) -> Path:
@@ -576,7 +593,6 @@ def first_look_procedure(grid: xr.Dataset) -> Procedure:
         ),
         gates=(flaw, backwall),
         detection_gate="flaw",
-        threshold_fsh=threshold,
         backwall_gate="backwall",
         backwall_loss_threshold_db=6.0,
         min_positions=2,
@@ -596,6 +612,9 @@ class Analysis:
     grid : xarray.Dataset
         The grid after calibration.
     procedure : Procedure
+    gates : dict of str to Gate
+        The gates as evaluated: levels in dB re the back wall turned into
+        %FSH with the measured nominal back-wall level.
     maps : dict of str to xarray.DataArray
         ``amplitude``, ``depth`` (detection gate) and, with a back-wall gate,
         ``backwall_amplitude``, ``backwall_depth``, ``backwall_loss`` and
@@ -610,6 +629,7 @@ class Analysis:
 
     grid: xr.Dataset
     procedure: Procedure
+    gates: dict[str, Gate]
     maps: dict[str, xr.DataArray]
     indications: list[dict[str, Any]]
     screening: dict[str, Any] | None
@@ -624,8 +644,8 @@ class Analysis:
             "file": self.source,
             "part_id": self.grid.attrs.get("part_id"),
             "gate": gate.to_dict(),
-            "threshold_fsh": self.procedure.threshold_fsh,
-            "threshold_db": self.procedure.threshold_db,
+            "threshold_fsh": gate.threshold_fsh if gate.threshold_db is None else None,
+            "threshold_db": gate.threshold_db,
             "procedure": self.procedure.name,
             "indications": self.indications,
             "screening": self.screening,
@@ -634,8 +654,15 @@ class Analysis:
         }
 
 
-def _gate_map(grid: xr.Dataset, proc: Procedure) -> dict[str, Gate]:
-    return {g.name: g for g in proc.gates}
+def _evaluate_chains(grid: xr.Dataset, gates: Mapping[str, Gate], names: list[str], detect: str
+                     ) -> dict[str, xr.Dataset]:
+    """Evaluate the gates `names` and the gates they follow, each once, in memory."""
+    chain: list[Gate] = []
+    for name in names:
+        for g in gate_chain(gates, name):
+            if g not in chain:
+                chain.append(g)
+    return {name: r.compute() for name, r in evaluate_gates(grid, chain, detect=detect).items()}
 
 
 def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None = None) -> Analysis:
@@ -660,7 +687,6 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         For gates outside the record, rules that cannot be read, and other
         problems of the procedure on this grid.
     """
-    from ndtmap.gates import evaluate_gates
     from ndtmap.grid.calibration import calibrate
     from ndtmap.indications.pipeline import scanned_area_mm2, size_indications
     from ndtmap.indications.rules import load_rules, screen
@@ -671,20 +697,8 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         grid = calibrate(
             grid, velocity_m_s=proc.velocity_m_s, zero_offset_us=proc.zero_offset_us, note=f"procedure {proc.name}"
         )
-    gates = _gate_map(grid, proc)
-    det = gates[proc.detection_gate]
+    gates = {g.name: g for g in proc.gates}
     maps: dict[str, xr.DataArray] = {}
-    # one pass over the A-scans per gate: every map of a gate is made from the same evaluation
-    wanted = [det.name] if proc.backwall_gate is None else [det.name, proc.backwall_gate]
-    chain: list[str] = []
-    for name in wanted:  # the wanted gates and the gates they follow
-        while name is not None and name not in chain:
-            chain.append(name)
-            name = gates[name].follows
-    results = {name: r.compute() for name, r in
-               evaluate_gates(grid, [gates[n] for n in chain], detect=proc.detect).items()}
-    maps["amplitude"] = amplitude_map(grid, det, detect=proc.detect, result=results[det.name])
-    maps["depth"] = depth_map(grid, det, detect=proc.detect, result=results[det.name])
     notes: list[str] = []
     cautions = [CAUTION]
     if proc.first_look:
@@ -692,6 +706,11 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
             "The gates and threshold were derived from the grid (first look), not from a written "
             "procedure: " + proc.description
         )
+    # one pass over the A-scans per gate: every map of a gate is made from the same evaluation; a level in dB
+    # re the back wall needs the back-wall gate measured first
+    wanted = [proc.detection_gate] if proc.backwall_gate is None else [proc.backwall_gate, proc.detection_gate]
+    first = wanted if not any(g.needs_reference for g in gates.values()) else wanted[:1]
+    results = _evaluate_chains(grid, gates, first, proc.detect)
     backwall_amp = backwall_depth = loss = None
     if proc.backwall_gate is not None:
         bw = gates[proc.backwall_gate]
@@ -707,14 +726,21 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
             maps["thickness"] = thickness_map(grid, bw, detect=proc.detect, result=bw_result)
         except NdtmapError as exc:  # e.g. an immersion grid without an interface gate
             notes.append(f"no thickness map: {exc}")
+        # the same nominal back-wall level as the back-wall-loss map (the procedure's, else the median)
+        nominal = float(loss.attrs["nominal_fsh"])
+        gates = {name: g.with_reference_fsh(nominal) for name, g in gates.items()}
+    if proc.detection_gate not in results:
+        results.update(_evaluate_chains(grid, gates, [proc.detection_gate], proc.detect))
+    det = gates[proc.detection_gate]
+    maps["amplitude"] = amplitude_map(grid, det, detect=proc.detect, result=results[det.name])
+    maps["depth"] = depth_map(grid, det, detect=proc.detect, result=results[det.name])
     rules = load_rules(proc.rules_path()) if proc.rules is not None else None
     kwargs: dict[str, Any] = {}
-    if proc.threshold_fsh is not None:
-        kwargs["threshold_fsh"] = proc.threshold_fsh
-    else:
-        kwargs["threshold_db"] = proc.threshold_db
-        # the same nominal back-wall level as the back-wall-loss map (the procedure's, else the median)
-        kwargs["reference"] = float(loss.attrs["nominal_fsh"]) if proc.reference == "backwall" else proc.reference
+    if det.threshold_db is None:
+        kwargs["threshold_fsh"] = det.threshold_fsh
+    else:  # the level in dB re its reference, as the gate states it (the records name it so)
+        kwargs["threshold_db"] = det.threshold_db
+        kwargs["reference"] = float(loss.attrs["nominal_fsh"]) if det.reference == "backwall" else det.reference
     if backwall_amp is not None:
         kwargs["backwall"] = backwall_amp
         kwargs["backwall_depth_mm"] = backwall_depth
@@ -754,6 +780,7 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
     return Analysis(
         grid=grid,
         procedure=proc,
+        gates=gates,
         maps=maps,
         indications=records,
         screening=screening,
@@ -783,7 +810,6 @@ def procedure_from_options(
         name="command-line options",
         gates=tuple(gates),
         detection_gate="flaw",
-        threshold_fsh=float(threshold_fsh),
         backwall_gate="backwall" if backwall_gate_mm is not None else None,
         min_area_mm2=min_area_mm2,
         detect=detect,

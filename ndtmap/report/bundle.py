@@ -651,11 +651,10 @@ def _cautions_box(cautions: Sequence[str]) -> str:
 
 def _first_look_box(proc: Any) -> str:
     gates = "".join(
-        f"<li>gate “{e(g.name)}”: {g.start:g} to {g.end:g} {e(g.unit)}, threshold {g.threshold_fsh:g} %FSH</li>"
+        f"<li>gate “{e(g.name)}”: {g.start:g} to {g.end:g} {e(g.unit)}, threshold {e(g.level_text())}</li>"
         for g in proc.gates
     )
-    thr = (f"{proc.threshold_fsh:g} %FSH" if proc.threshold_fsh is not None
-           else f"{proc.threshold_db:g} dB re {e(proc.reference)}")
+    thr = e(proc.detection_level)
     loss = (f"<li>back-wall-loss indications from {proc.backwall_loss_threshold_db:g} dB</li>"
             if proc.backwall_loss_threshold_db else "")
     return (
@@ -745,16 +744,16 @@ def _provenance_html(grid_record: list[dict[str, Any]], maps: Mapping[str, list[
 
 def _threshold_text(analysis: Any) -> str:
     """The detection level in words, with its value in %FSH when it is given in dB."""
-    proc = analysis.procedure
-    if proc.threshold_fsh is not None:
-        return f"{proc.threshold_fsh:g} %FSH"
-    if proc.reference == "backwall":
-        ref = float(np.nanmedian(np.asarray(analysis.maps["backwall_amplitude"].values, dtype=np.float64)))
-        what = f"the median back-wall echo, {ref:.2f} %FSH"
+    gate = analysis.gates[analysis.procedure.detection_gate]
+    if gate.threshold_db is None:
+        return f"{gate.threshold_fsh:g} %FSH"
+    if gate.reference == "backwall":
+        ref = float(analysis.maps["backwall_loss"].attrs["nominal_fsh"])
+        what = f"the nominal back-wall echo, {ref:.2f} %FSH"
     else:
-        ref = float(proc.reference)
+        ref = float(gate.reference)
         what = f"{ref:g} %FSH"
-    return f"{proc.threshold_db:g} dB re {what} (= {ref * 10.0 ** (proc.threshold_db / 20.0):.2f} %FSH)"
+    return f"{gate.threshold_db:g} dB re {what} (= {gate.threshold_fsh:.2f} %FSH)"
 
 
 def _settings_html(analysis: Any) -> str:

@@ -53,14 +53,22 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.arrays import is_lazy
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float
 from ndtmap.errors import GateError, NdtmapError, ParameterError, ParameterTypeError, SizingError
-from ndtmap.gates import GATE_UNITS, Gate, evaluate_gate, evaluate_gates, gate_chain, gate_window_us
+from ndtmap.gates import (
+    DEFAULT_THRESHOLD_FSH,
+    GATE_UNITS,
+    Gate,
+    evaluate_gate,
+    evaluate_gates,
+    gate_chain,
+    gate_window_us,
+)
 from ndtmap.grid.geometry import part_constants
 from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import ascan_in_fsh, check_grid, grid_attr, missing_ascans
 from ndtmap.indications.flags import FLAG_MEANINGS
 from ndtmap.indications.sizing import LengthResult, drop_length
 from ndtmap.procedure.definition import Analysis, Procedure, load_procedure, procedure_to_toml, run_procedure
-from ndtmap.scans.sections import b_scan, d_scan
+from ndtmap.scans import b_scan, backwall_loss_map, d_scan
 from ndtmap.signal import detected_signal
 from ndtmap.workbench import _compute as cx
 
@@ -196,13 +204,13 @@ def default_procedure(grid: xr.Dataset) -> Procedure:
     d1 = (pc.time_us[-1] - pc.zero_offset_us) * k
     start = max(0.0, d0) + 0.1 * (d1 - max(0.0, d0))
     end = d1 - 0.1 * (d1 - max(0.0, d0))
-    gate = Gate("gate A", round(start, 2), round(end, 2), threshold_fsh=20.0)
+    gate = Gate("gate A", round(start, 2), round(end, 2), threshold_fsh=DEFAULT_THRESHOLD_FSH)
     return Procedure(
         name="workbench default (one gate)",
-        description="One gate over the middle 80 % of the recorded depth at 20 %FSH, set by the workbench.",
+        description=(f"One gate over the middle 80 % of the recorded depth at {DEFAULT_THRESHOLD_FSH:g} %FSH, set by "
+                     "the workbench."),
         gates=(gate,),
         detection_gate=gate.name,
-        threshold_fsh=20.0,
     )
 
 
@@ -274,17 +282,11 @@ class WorkbenchState:
         self.min_area_mm2 = proc.min_area_mm2
         self.min_positions = proc.min_positions
         self.edge = proc.edge
-        self._threshold_db = proc.threshold_db
-        self._reference = proc.reference
-        if proc.threshold_fsh is not None:
-            det = self._gates[proc.detection_gate]
-            if det.threshold_fsh != proc.threshold_fsh:
-                self._gates[det.name] = replace(det, threshold_fsh=proc.threshold_fsh)
-                self.notes.append(
-                    f"gate {det.name!r}: threshold set to the procedure's detection threshold "
-                    f"{proc.threshold_fsh:g} %FSH (was {det.threshold_fsh:g} %FSH); in the workbench a gate's "
-                    "threshold is also its detection level"
-                )
+        if any(g.needs_reference for g in proc.gates):  # levels in dB re the back wall: measure it once
+            bw = self._gates[proc.backwall_gate]
+            loss = backwall_loss_map(self.grid, bw, nominal_fsh=proc.backwall_nominal_fsh, detect=proc.detect)
+            nominal = float(loss.attrs["nominal_fsh"])
+            self._gates = OrderedDict((n, g.with_reference_fsh(nominal)) for n, g in self._gates.items())
         for g in self._gates.values():  # every window must fit the record
             cx.chain_bounds_us(self.grid, gate_chain(self._gates, g.name), "rectified")
         self.active_gate = proc.detection_gate
@@ -505,8 +507,8 @@ class WorkbenchState:
     def set_backwall_gate(self, name: str | None) -> None:
         """The back-wall gate (loss indications, DGS reference, thickness), or None."""
         if name in (None, "", "none"):
-            if self._threshold_db is not None and self._reference == "backwall":
-                raise GateError("the detection level is in dB re the back wall; it needs a back-wall gate")
+            if any(g.reference == "backwall" for g in self._gates.values()):
+                raise GateError("a gate's level is in dB re the back wall; it needs a back-wall gate")
             self.backwall_gate = None
             return
         self.gate(name)
@@ -845,17 +847,14 @@ class WorkbenchState:
             When the settings do not form a valid procedure.
         """
         base = self._base
-        det = self._gates[self.detection_gate]
+        # a level in dB re the back wall is saved as such: the back wall is measured again on every run
+        gates = tuple(replace(g, threshold_fsh=None) if g.reference == "backwall" else g for g in self._gates.values())
         kwargs: dict[str, Any] = dict(
-            gates=tuple(self._gates.values()), detection_gate=self.detection_gate, backwall_gate=self.backwall_gate,
+            gates=gates, detection_gate=self.detection_gate, backwall_gate=self.backwall_gate,
             detect=self.detect, min_area_mm2=self.min_area_mm2, min_positions=self.min_positions, edge=self.edge,
             backwall_loss_threshold_db=self.loss_threshold_db if self.backwall_gate else None,
             backwall_nominal_fsh=self.backwall_nominal_fsh if self.backwall_gate else None,
         )
-        if self._threshold_db is None:
-            kwargs.update(threshold_fsh=det.threshold_fsh, threshold_db=None, reference=None)
-        else:
-            kwargs.update(threshold_fsh=None, threshold_db=self._threshold_db, reference=self._reference)
         rules = base.rules_path()
         kwargs["rules"] = str(rules.resolve()) if rules is not None else None
         unchanged = all(getattr(base, k) == v for k, v in kwargs.items() if k != "rules")

@@ -547,8 +547,7 @@ class Workbench:
             self._error(exc, self.indication_head)
             return
         det = proc.gate(proc.detection_gate)
-        level = (f"\u2265 {proc.threshold_fsh:g} %FSH" if proc.threshold_fsh is not None
-                 else f"\u2265 {proc.threshold_db:g} dB re {proc.reference}")
+        level = f"\u2265 {html.escape(proc.detection_level)}"
         extra = ""
         if proc.backwall_gate:
             extra = f"; back-wall gate {html.escape(proc.backwall_gate)}"

@@ -99,7 +99,7 @@ plots.section_figure(b_scan(grid, 24.0), along="scan", cursor_mm=37.5, title="B-
 from ndtmap.procedure import Procedure
 from ndtmap.workbench import WorkbenchState
 
-procedure = Procedure("quick start", (flaw, backwall), "flaw", threshold_fsh=10.0, backwall_gate="backwall",
+procedure = Procedure("quick start", (flaw, backwall), "flaw", backwall_gate="backwall",
                       backwall_loss_threshold_db=6.0, min_positions=2)
 state = WorkbenchState(grid, procedure=procedure)
 state.select_point(37.5, 24.0)
@@ -167,7 +167,7 @@ truth = {r["label"].split()[0]: r for r in scan_truth(grid)["reflectors"]}
 procedure = Procedure(
     "KFP-PL-2041 lamination survey",
     gates=(Gate("flaw", 1.0, 23.5, threshold_fsh=10.0), Gate("backwall", 23.5, 27.0, threshold_fsh=10.0)),
-    detection_gate="flaw", threshold_fsh=10.0, backwall_gate="backwall", backwall_loss_threshold_db=6.0,
+    detection_gate="flaw", backwall_gate="backwall", backwall_loss_threshold_db=6.0,
     min_positions=2, rules="kfp-plate-rules.toml", base_dir=".",
 )
 analysis = run_procedure(grid, procedure, source="plate_laminations.nc")

@@ -1,8 +1,8 @@
 """The compiled gate kernel against the numpy reference kernel and against plain numpy definitions.
 
-The reference kernel (``ndtmap.gates.kernels.reference_gate_kernel``) is itself checked against exact sub-sample formulas in
-tests/test_gates.py; here the compiled kernel must give the same numbers, bit for bit, on random data with the
-awkward cases: NaN A-scans, the int16 value -32768, windows at the ends of the record, per-A-scan windows.
+The reference kernel (``ndtmap.gates.kernels.reference_gate_kernel``) is itself checked against exact sub-sample
+formulas in tests/gates/test_gates.py; here the compiled kernel must give the same numbers, bit for bit, on random
+data with the awkward cases: NaN A-scans, the int16 value -32768, windows at the ends of the record, per-A-scan windows.
 """
 
 import numpy as np

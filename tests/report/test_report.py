@@ -247,7 +247,7 @@ def test_first_look_is_stated_with_the_derived_values(tmp_path, monkeypatch, cap
     text = " ".join(" ".join(page.text).split())
     assert "First look: settings derived from the grid" in text
     proc = ndtmap.procedure.definition.first_look_procedure(open_grid(sample_path("corroded_wall.nc")))
-    assert f"detection threshold {proc.threshold_fsh:g} %FSH" in text
+    assert f"detection threshold {proc.gate('flaw').threshold_fsh:g} %FSH" in text
     flaw = proc.gate("flaw")
     assert f"gate “flaw”: {flaw.start:g} to {flaw.end:g} mm" in text
     assert "static images (PNG/SVG/PDF) were skipped" in text
@@ -388,7 +388,7 @@ def test_forging_procedure_finds_the_small_reflectors_and_sizes_them_by_dgs():
             assert 3.0 <= r["peak_fsh"] <= 8.0
     # the recording level is some 10 dB above the noise (median amplitude outside indications ~1 %FSH)
     amp = a.maps["amplitude"].values
-    assert np.median(amp) < 1.5 and a.procedure.threshold_db == pytest.approx(-28.2)
+    assert np.median(amp) < 1.5 and a.procedure.gate("volume").threshold_db == pytest.approx(-28.2)
 
 
 def test_a_folder_gives_every_grid_file_in_it(tmp_path):

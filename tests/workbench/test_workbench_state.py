@@ -92,7 +92,7 @@ def test_cut_grid_gives_the_same_gate_result_as_the_whole_grid_with_missing_asca
     bw2 = Gate("bw2", 8.0, 16.0, threshold_fsh=20.0, follows="bw1")
     from ndtmap.procedure import Procedure
 
-    st = WorkbenchState(grid, procedure=Procedure("t", (bw1, bw2), "bw1", threshold_fsh=20.0))
+    st = WorkbenchState(grid, procedure=Procedure("t", (bw1, bw2), "bw1"))
     for g in (bw1, bw2):
         full = evaluate_gate(grid, g, others=[bw1])
         cut = st.gate_result(g.name)
@@ -178,7 +178,7 @@ def test_default_procedure_for_an_angle_beam_grid_is_one_gate():
     from ndtmap.grid.examples import example_grid
 
     p = default_procedure(example_grid(beam_angle_deg=45.0))
-    assert len(p.gates) == 1 and p.threshold_fsh == 20.0
+    assert len(p.gates) == 1 and p.gates[0].threshold_fsh == 20.0 and p.detection_level == "20 %FSH"
     st = WorkbenchState(example_grid(beam_angle_deg=45.0))
     assert st.map().dims == ("scan", "index")
 
@@ -284,9 +284,9 @@ def test_threshold_edit_changes_the_indication_list(state, plate):
     # the same list as the first-look procedure with its detection level moved to 78 %FSH
     base = first_look_procedure(plate)
     gates = tuple(replace(g, threshold_fsh=78.0) if g.name == "flaw" else g for g in base.gates)
-    ref = run_procedure(plate, replace(base, gates=gates, threshold_fsh=78.0)).indications
+    ref = run_procedure(plate, replace(base, gates=gates)).indications
     assert json.dumps(after) == json.dumps(ref)
-    assert state.procedure().threshold_fsh == 78.0
+    assert state.procedure().gate("flaw").threshold_fsh == 78.0
 
 
 def test_saved_procedure_replayed_by_the_command_line_gives_the_same_indications(state, tmp_path):

@@ -14,7 +14,7 @@ against it. It runs in named steps:
    immersion interface (:mod:`ndtmap.simulate.echo_sources`);
 4. noise, clipping, drop-outs and the sample type
    (:mod:`ndtmap.simulate.acquisition`);
-5. the grid with its attributes and truth (:mod:`ndtmap.simulate.truth`).
+5. the grid with its attributes (:func:`_scan_grid`) and truth (:mod:`ndtmap.simulate.truth`).
 
 The model behind the echoes and its approximations are described in
 :mod:`ndtmap.simulate.model`.
@@ -49,6 +49,8 @@ __all__ = ["simulate_scan", "FRONT_SURFACE_REFLECTION"]
 #: the part (steel to a water-like couplant: (46.4 - 1.5) / (46.4 + 1.5) ~ 0.94,
 #: less in contact with a thin layer; a round figure is used).
 FRONT_SURFACE_REFLECTION = 0.9
+#: Acoustic impedance of the water in immersion, MRayl: handbook water (1483 m/s x 998 kg/m^3 = 1.480)
+#: rounded; kept as typed so that simulated immersion scans stay the same bit for bit.
 _WATER_IMPEDANCE_MRAYL = 1.48
 
 
@@ -157,28 +159,16 @@ def simulate_scan(
     grid_attrs = _grid_attrs(model, plan, gain_used_db=gain_used_db, full_scale_fsh=full_scale_fsh)
     grid_attrs.update(attrs or {})
     data, fsh_per_count = _digitised(rf, dropout, dtype, full_scale_fsh)
-    scan = np.asarray(plan.scan_mm)
-    index = np.asarray(plan.index_mm)
-    ds = make_grid(
+    thickness = part.thickness_at(np.asarray(plan.scan_mm)[:, None], np.asarray(plan.index_mm)[None, :])
+    ds = _scan_grid(
         data,
-        scan_mm=scan,
-        index_mm=index,
-        time_us=plan.time_us(),
-        velocity_m_s=material.velocity_m_s,
-        beam_angle_deg=probe.beam_angle_deg,
-        probe_frequency_mhz=probe.frequency_mhz,
-        probe_diameter_mm=probe.diameter_mm,
-        signal=signal_kind,
+        model,
+        plan,
+        signal_kind=signal_kind,
         fsh_per_count=fsh_per_count,
         attrs=grid_attrs,
-    )
-    if dtype == "int16" and dropout.any():
-        ds["missing"] = (("scan", "index"), dropout, {"long_name": "A-scan missing (encoder drop-out)"})
-    thickness = part.thickness_at(scan[:, None], index[None, :])
-    ds["truth_thickness_mm"] = (
-        ("scan", "index"),
-        thickness.astype(np.float64),
-        {"units": "mm", "long_name": "true remaining wall thickness (simulation)"},
+        missing=dropout if dtype == "int16" else None,
+        thickness_mm=thickness,
     )
     truth = _truth_record(
         model, reflectors, noise, thickness_mm=thickness, gain_db=gain_used_db, dropout=dropout, seed=seed
@@ -484,3 +474,39 @@ def _grid_attrs(model: _Model, plan: ScanPlan, *, gain_used_db: float, full_scal
         grid_attrs["water_path_mm"] = part.water_path_mm
         grid_attrs["water_velocity_m_s"] = part.water_velocity_m_s
     return grid_attrs
+
+
+def _scan_grid(
+    data: np.ndarray,
+    model: _Model,
+    plan: ScanPlan,
+    *,
+    signal_kind: str,
+    fsh_per_count: float | None,
+    attrs: dict[str, Any],
+    missing: np.ndarray | None,
+    thickness_mm: np.ndarray,
+) -> xr.Dataset:
+    """The scan grid of the samples, with the drop-out mask (if any are missing) and the true thickness map."""
+    probe = model.probe
+    ds = make_grid(
+        data,
+        scan_mm=np.asarray(plan.scan_mm),
+        index_mm=np.asarray(plan.index_mm),
+        time_us=plan.time_us(),
+        velocity_m_s=model.material.velocity_m_s,
+        beam_angle_deg=probe.beam_angle_deg,
+        probe_frequency_mhz=probe.frequency_mhz,
+        probe_diameter_mm=probe.diameter_mm,
+        signal=signal_kind,
+        fsh_per_count=fsh_per_count,
+        attrs=attrs,
+    )
+    if missing is not None and missing.any():
+        ds["missing"] = (("scan", "index"), missing, {"long_name": "A-scan missing (encoder drop-out)"})
+    ds["truth_thickness_mm"] = (
+        ("scan", "index"),
+        thickness_mm.astype(np.float64),
+        {"units": "mm", "long_name": "true remaining wall thickness (simulation)"},
+    )
+    return ds

@@ -24,6 +24,8 @@ __all__ = ["Probe", "Material", "WallLoss", "Part", "ScanPlan", "Noise"]
 
 #: Handbook steel: the default material of the simulator.
 _STEEL = material("steel")
+#: Handbook water: the default couplant in immersion.
+_WATER = material("water")
 
 
 @dataclass(frozen=True)
@@ -174,7 +176,7 @@ class Part:
     surface_tilt_deg : float, default 0
         Immersion: tilt of the part along the scan axis; the water path grows
         by ``tan(tilt)`` per mm of scan.
-    water_velocity_m_s : float, default 1483
+    water_velocity_m_s : float, default: handbook water (1483)
         Sound velocity in the water, m/s.
     """
 
@@ -182,7 +184,7 @@ class Part:
     wall_losses: tuple[WallLoss, ...] = ()
     water_path_mm: float | None = None
     surface_tilt_deg: float = 0.0
-    water_velocity_m_s: float = 1483.0
+    water_velocity_m_s: float = _WATER.longitudinal_m_s
 
     def __post_init__(self) -> None:
         positive_float("thickness_mm", self.thickness_mm)

@@ -156,6 +156,7 @@ class WallLoss:
         nonnegative_float("loss_mm", self.loss_mm)
 
     def loss_at(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """Loss of wall in mm at scan/index positions x, y (mm)."""
         r = np.hypot(x - self.scan_mm, y - self.index_mm)
         shape = 0.5 * (1.0 + np.cos(np.pi * np.minimum(r / self.radius_mm, 1.0)))
         return self.loss_mm * shape
@@ -263,6 +264,7 @@ class ScanPlan:
         return cls(axes[0], axes[1], time_range_us[0], time_range_us[1], sampling_mhz)
 
     def time_us(self) -> np.ndarray:
+        """Recorded sample times, us: from `time_start_us` every ``1 / sampling_mhz`` up to `time_end_us`."""
         dt = 1.0 / self.sampling_mhz
         n = int(math.floor((self.time_end_us - self.time_start_us) / dt + 1e-9)) + 1
         return self.time_start_us + dt * np.arange(n)

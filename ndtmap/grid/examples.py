@@ -13,6 +13,7 @@ import numpy as np
 import xarray as xr
 
 from ndtmap.grid.schema import make_grid
+from ndtmap.physics.materials import MATERIALS
 
 
 def tone_burst(time_us: np.ndarray, centre_us: float, *, frequency_mhz: float = 5.0, sigma_us: float = 0.15,
@@ -24,7 +25,8 @@ def tone_burst(time_us: np.ndarray, centre_us: float, *, frequency_mhz: float = 
 
 def example_grid(echo_times_us: Sequence[float] = (4.0,), amplitudes_fsh: Sequence[float] | None = None, *,
                  n_scan: int = 3, n_index: int = 2, duration_us: float = 10.0, dt_us: float = 0.02,
-                 velocity_m_s: float = 5920.0, beam_angle_deg: float = 0.0, attrs: dict | None = None) -> xr.Dataset:
+                 velocity_m_s: float = MATERIALS["steel"].longitudinal_m_s, beam_angle_deg: float = 0.0,
+                 attrs: dict | None = None) -> xr.Dataset:
     """A small RF grid whose every A-scan holds echoes at `echo_times_us`.
 
     Examples

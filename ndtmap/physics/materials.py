@@ -42,7 +42,18 @@ class MaterialData:
         return self.longitudinal_m_s * self.density_kg_m3 * 1e-6
 
     def velocity(self, wave_mode: str) -> float:
-        """Velocity in m/s of ``'longitudinal'`` or ``'shear'`` waves."""
+        """Velocity in m/s of ``'longitudinal'`` or ``'shear'`` waves (NaN: the mode does not propagate).
+
+        Raises
+        ------
+        ParameterError
+            For another `wave_mode`.
+
+        Examples
+        --------
+        >>> MATERIALS["steel"].velocity("shear")
+        3230.0
+        """
         if wave_mode == "longitudinal":
             return self.longitudinal_m_s
         if wave_mode == "shear":
@@ -66,14 +77,34 @@ MATERIALS: dict[str, MaterialData] = {
 
 
 def material(name: str) -> MaterialData:
-    """Look up a material by name.
+    """Look up a material of :data:`MATERIALS` by name.
+
+    Parameters
+    ----------
+    name : str
+        Name of the material, e.g. ``"steel"`` or ``"aluminium"`` (case and
+        surrounding spaces do not matter).
+
+    Returns
+    -------
+    MaterialData
+
+    Raises
+    ------
+    ParameterError
+        For a name not in the table; the message lists the known names.
 
     Examples
     --------
     >>> material("steel").longitudinal_m_s
     5920.0
+    >>> material(" Stainless Steel ").name
+    'stainless steel'
     """
     key = str(name).strip().lower()
     if key not in MATERIALS:
-        raise ParameterError(f"`name` {name!r} is not a known material; known: {', '.join(MATERIALS)}")
+        raise ParameterError(
+            f"`name` {name!r} is not a known material; known: {', '.join(MATERIALS)}. "
+            "For another material give its velocity, measured on a reference block"
+        )
     return MATERIALS[key]

@@ -12,7 +12,7 @@ Kestrel Forge & Plate is a fictional fabricator. Its inspection bay scans
   5 MHz / 6 mm, with areas of wall loss on the far side and a few encoder
   drop-outs.
 
-Every file is simulated by :func:`ndtmap.simulate.model.simulate_scan` from a fixed
+Every file is simulated by :func:`ndtmap.simulate.scan.simulate_scan` from a fixed
 random seed, so ``ndtmap make-samples DIR`` rebuilds the same A-scans; the
 truth travels inside each file. The data is synthetic and for demonstration
 and testing only.
@@ -25,17 +25,11 @@ from pathlib import Path
 
 import xarray as xr
 
-from ndtmap.simulate.model import (
-    FlatBottomHole,
-    Material,
-    Noise,
-    Part,
-    PlanarReflector,
-    Probe,
-    ScanPlan,
-    WallLoss,
-    simulate_scan,
-)
+from ndtmap.errors import FileFormatError, ParameterError
+from ndtmap.io.grid_files import save_grid
+from ndtmap.simulate.reflectors import FlatBottomHole, PlanarReflector
+from ndtmap.simulate.scan import simulate_scan
+from ndtmap.simulate.scenario import Material, Noise, Part, Probe, ScanPlan, WallLoss
 
 __all__ = ["SAMPLES", "build_sample", "build_samples", "sample_path"]
 
@@ -53,7 +47,7 @@ def plate_laminations() -> xr.Dataset:
     plan = ScanPlan.raster((0.0, 120.0), (0.0, 80.0), (1.5, 2.0), (0.0, 17.5), sampling_mhz=40.0)
     return simulate_scan(
         Probe(4.0, 8.0, bandwidth=0.6),
-        Material(5920.0, attenuation_db_per_mm=0.004, name="steel"),
+        Material.from_handbook("steel", attenuation_db_per_mm=0.004),
         Part(25.0),
         reflectors,
         plan,
@@ -81,7 +75,7 @@ def forging_block() -> xr.Dataset:
     plan = ScanPlan.raster((0.0, 120.0), (0.0, 80.0), 2.5, (0.0, 57.0), sampling_mhz=20.0)
     return simulate_scan(
         Probe(2.0, 20.0, bandwidth=0.5),
-        Material(5920.0, attenuation_db_per_mm=0.01, name="steel"),
+        Material.from_handbook("steel", attenuation_db_per_mm=0.01),
         Part(160.0),
         reflectors,
         plan,
@@ -108,7 +102,7 @@ def corroded_wall() -> xr.Dataset:
     plan = ScanPlan.raster((0.0, 100.0), (0.0, 60.0), 1.25, (0.0, 9.0), sampling_mhz=50.0)
     return simulate_scan(
         Probe(5.0, 6.0, bandwidth=0.7),
-        Material(5920.0, attenuation_db_per_mm=0.005, name="steel"),
+        Material.from_handbook("steel", attenuation_db_per_mm=0.005),
         Part(12.0, wall_losses=losses),
         [],
         plan,
@@ -134,8 +128,6 @@ SAMPLES: dict[str, Callable[[], xr.Dataset]] = {
 
 def build_sample(name: str) -> xr.Dataset:
     """Build one sample grid by file name (see :data:`SAMPLES`)."""
-    from ndtmap.errors import ParameterError
-
     if name not in SAMPLES:
         raise ParameterError(f"`name` must be one of {sorted(SAMPLES)}, got {name!r}")
     return SAMPLES[name]()
@@ -143,8 +135,6 @@ def build_sample(name: str) -> xr.Dataset:
 
 def build_samples(directory: str | Path, *, names: list[str] | None = None) -> list[Path]:
     """Write the sample grids into `directory` (atomically), return their paths."""
-    from ndtmap.io.grid_files import save_grid
-
     out = Path(directory)
     out.mkdir(parents=True, exist_ok=True)
     paths = []
@@ -163,8 +153,6 @@ def sample_path(name: str) -> Path:
         When the folder is not there (e.g. an installed wheel without the
         samples): rebuild them with ``ndtmap make-samples DIR``.
     """
-    from ndtmap.errors import FileFormatError
-
     here = Path(__file__).resolve().parents[2] / "sample_grids" / name
     if not here.exists():
         raise FileFormatError(

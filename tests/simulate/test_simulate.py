@@ -36,6 +36,7 @@ from ndtmap.simulate import (
     simulate_scan,
     tone_burst,
 )
+from ndtmap.simulate.model import _build_model
 
 STEEL = Material(5920.0)
 PROBE = Probe(5.0, 10.0, bandwidth=0.6)
@@ -84,8 +85,6 @@ def test_plane_echo_follows_diffraction_law():
     # imposed by the plane-correction factor; in the far field the coherent patch sum reaches the law by
     # itself (stationary phase over the Fresnel zones), so the factor must be close to 1 there: that is
     # the independent check of the model against the diffraction integral (Krautkramer ch. 5).
-    from ndtmap.simulate.model import _build_model
-
     model = _build_model(PROBE, STEEL, Part(300.0), ScanPlan.raster((0, 0), (0, 0), 1, (0, 1)))
     far = np.array([4 * N, 8 * N, 12 * N])
     assert model.plane_correction(far) == pytest.approx(np.ones(3), abs=0.06)

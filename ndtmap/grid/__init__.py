@@ -1,4 +1,18 @@
-"""ndtmap.grid."""
+"""The scan grid: its schema, its geometry and its record of processing.
+
+A scan grid is an :class:`xarray.Dataset` of A-scans on ``(scan, index, time)``
+(docs/grid-format.md). This subpackage states that format once and owns what
+every other part needs to read a grid correctly:
+
+* :mod:`ndtmap.grid.schema`: :func:`make_grid`, :func:`validate_grid`,
+  :func:`grid_problems` (every problem at once), missing A-scans, samples in %FSH;
+* :mod:`ndtmap.grid.geometry`: THE mapping from recorded time to sound path, depth
+  and surface distance (:class:`PartConstants`), legs and skip distance of angle beams;
+* :mod:`ndtmap.grid.calibration`: velocity and zero offset from known thicknesses
+  or echo sequences, :func:`calibrate`;
+* :mod:`ndtmap.grid.provenance`: the processing record every result carries;
+* :mod:`ndtmap.grid.summary`: the plain-value summary ``ndtmap info`` prints.
+"""
 
 from ndtmap.grid.calibration import (
     TwoPointCalibration,
@@ -10,9 +24,11 @@ from ndtmap.grid.calibration import (
     zero_offset_from_echo,
 )
 from ndtmap.grid.geometry import (
+    PartConstants,
     depth_axis,
     depth_from_sound_path_mm,
     leg_and_folded_depth,
+    part_constants,
     skip_distance_mm,
     sound_path_axis,
     sound_path_from_depth_mm,
@@ -33,15 +49,23 @@ from ndtmap.grid.schema import (
     REQUIRED_ATTRS,
     ascan_in_fsh,
     canonical_grid,
+    check_grid,
     grid_attr,
     grid_problems,
     make_grid,
     missing_ascans,
+    replace_ascan,
     time_step_us,
     validate_grid,
 )
+from ndtmap.grid.summary import (
+    format_summary,
+    grid_summary,
+)
 
 __all__ = [
+    "check_grid",
+    "replace_ascan",
     "DIMS",
     "REQUIRED_ATTRS",
     "OPTIONAL_ATTRS",
@@ -53,16 +77,8 @@ __all__ = [
     "ascan_in_fsh",
     "time_step_us",
     "grid_attr",
-    "read_provenance",
-    "with_step",
-    "jsonable",
-    "TwoPointCalibration",
-    "velocity_from_thickness",
-    "zero_offset_from_echo",
-    "two_point_calibration",
-    "thickness_from_echo_spacing",
-    "velocity_from_echo_spacing",
-    "calibrate",
+    "PartConstants",
+    "part_constants",
     "sound_path_mm",
     "time_from_sound_path_us",
     "depth_from_sound_path_mm",
@@ -74,4 +90,16 @@ __all__ = [
     "sound_path_axis",
     "depth_axis",
     "surface_distance_axis",
+    "TwoPointCalibration",
+    "velocity_from_thickness",
+    "zero_offset_from_echo",
+    "two_point_calibration",
+    "thickness_from_echo_spacing",
+    "velocity_from_echo_spacing",
+    "calibrate",
+    "read_provenance",
+    "with_step",
+    "jsonable",
+    "grid_summary",
+    "format_summary",
 ]

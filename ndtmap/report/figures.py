@@ -217,7 +217,9 @@ def dgs_family(probe_mm: float, ers: Sequence[float]) -> list[float]:
     Examples
     --------
     >>> dgs_family(10.0, [2.2])
-    [1.0, 2.0, 3.0, 4.0]
+    [0.5, 1.0, 2.0, 3.0, 4.0]
+    >>> dgs_family(10.0, [6.5])
+    [0.5, 1.0, 2.0, 3.0, 4.0, 8.0]
     >>> dgs_family(0.8, [])
     [0.4]
     """

@@ -168,9 +168,10 @@ def run_demo(
         echo(f"note: {note}")
 
     if report:
-        from ndtmap.report.bundle import write_report
+        from ndtmap.report import write_report
 
-        result = write_report([path], output / "report", procedure=procedure)
+        # the analysis above is reported as it is: the procedure runs once
+        result = write_report([analysis], output / "report")
         echo(f"\nreport bundle: {result.index_html}")
         for note in result.notes:
             echo(f"  note: {note}")

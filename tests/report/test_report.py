@@ -233,10 +233,17 @@ def test_no_verdict_words(plate):
 # --------------------------------------------------------------------------- first look, no browser
 
 
-def test_first_look_is_stated_with_the_derived_values(tmp_path, monkeypatch, capsys):
-    import ndtmap.plot.export
+def no_browser(monkeypatch, tmp_path):
+    """As on a machine without Chromium: no BROWSER_PATH, nothing on PATH."""
+    empty = tmp_path / "empty-path"
+    empty.mkdir(exist_ok=True)
+    monkeypatch.delenv("BROWSER_PATH", raising=False)
+    monkeypatch.setenv("PATH", str(empty))
+    assert find_chromium() is None
 
-    monkeypatch.setattr(ndtmap.plot.export, "find_chromium", lambda: None)  # as on a machine without Chromium
+
+def test_first_look_is_stated_with_the_derived_values(tmp_path, monkeypatch, capsys):
+    no_browser(monkeypatch, tmp_path)
     out = tmp_path / "fl"
     code = main(["report", str(sample_path("corroded_wall.nc")), "-o", str(out), "--figures", "amplitude",
                  "thickness", "--quiet"])

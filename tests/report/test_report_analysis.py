@@ -82,7 +82,7 @@ def test_an_analysis_keeps_its_own_procedure(tmp_path):
     grid = open_grid(sample_path("plate_laminations.nc"))
     proc = load_procedure(PLATE_PROCEDURE)
     analysis = run_procedure(grid, proc)
-    other = replace(proc, threshold_fsh=30.0)
+    other = proc.with_gate(replace(proc.gate("flaw"), threshold_fsh=30.0))
     with pytest.raises(ParameterError, match="differs from the procedure"):
         write_report(analysis, tmp_path / "out", procedure=other, formats=())
     assert not (tmp_path / "out").exists()  # refused before anything was written

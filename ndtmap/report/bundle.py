@@ -208,7 +208,7 @@ def safe_name(text: Any, default: str = "part", *, max_length: int = 64) -> str:
 
 
 def _is_sidecar(path: Path) -> bool:
-    from ndtmap.io.grid_files import RAW_SIDECAR_FORMAT
+    from ndtmap.io import RAW_SIDECAR_FORMAT
 
     try:
         if path.stat().st_size > 64 * 2**20:
@@ -319,14 +319,14 @@ class _Writer:
         return target
 
     def text(self, path: Path, text: str) -> Path:
-        from ndtmap.io.grid_files import atomic_write_text
+        from ndtmap.io import atomic_write_text
 
         out = atomic_write_text(self._target(path), text)
         self.written.append(out)
         return out
 
     def data(self, path: Path, data: bytes) -> Path:
-        from ndtmap.io.grid_files import atomic_write_bytes
+        from ndtmap.io import atomic_write_bytes
 
         out = atomic_write_bytes(self._target(path), data)
         self.written.append(out)
@@ -1093,7 +1093,7 @@ def write_report(
     lazy : bool, optional
         Open grid files lazily (dask-backed; True when a Dask scheduler is
         used, so that the cluster computes); default: lazy only when a grid
-        is larger than a share of memory (see :func:`ndtmap.io.grid_files.open_grid`).
+        is larger than a share of memory (see :func:`ndtmap.io.open_grid`).
 
     Returns
     -------
@@ -1108,7 +1108,7 @@ def write_report(
     """
     from tqdm import tqdm
 
-    from ndtmap.io.grid_files import open_grid
+    from ndtmap.io import open_grid
     from ndtmap.plot.export import export_session, find_chromium, write_plotly_js
     from ndtmap.procedure.definition import FIGURE_KINDS, Procedure, first_look_procedure, load_procedure
 

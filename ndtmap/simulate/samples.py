@@ -143,7 +143,7 @@ def build_sample(name: str) -> xr.Dataset:
 
 def build_samples(directory: str | Path, *, names: list[str] | None = None) -> list[Path]:
     """Write the sample grids into `directory` (atomically), return their paths."""
-    from ndtmap.io.grid_files import save_grid
+    from ndtmap.io import save_grid
 
     out = Path(directory)
     out.mkdir(parents=True, exist_ok=True)

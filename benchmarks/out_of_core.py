@@ -8,7 +8,7 @@ Steps, each in its own child process so that its peak resident memory (``ru_maxr
 1. *build*: a seeded synthetic int16 plate scan (back-wall echo, corrosion patches, laminar reflectors as tone
    bursts, noise; ``benchmarks/synthetic.py``) of the requested size is written to a Zarr v3 store with
    :func:`ndtmap.io.convert.write_zarr` (the writer of ``ndtmap convert``), one chunk of whole A-scans at a time;
-   the grid never exists in memory (``--writer save_grid`` uses :func:`ndtmap.io.grid_files.save_grid` instead);
+   the grid never exists in memory (``--writer save_grid`` uses :func:`ndtmap.io.save_grid` instead);
 2. *map*: the store is opened lazily and ``amplitude_map``, ``depth_map`` and ``backwall_loss_map`` (nominal
    level from the data) are computed on dask's local threads.
 

@@ -33,7 +33,7 @@ from ndtmap.grid.schema import (
     validate_grid,
 )
 from ndtmap.indications.pipeline import size_indications
-from ndtmap.io.grid_files import export_raw, import_raw, open_grid, save_grid
+from ndtmap.io import export_raw, import_raw, open_grid, save_grid
 
 CAUTION = (
     "Results must be reviewed by qualified personnel (e.g. certified to ISO 9712 or the "

@@ -47,7 +47,7 @@ class _Parser(argparse.ArgumentParser):
 
 def cmd_info(args: argparse.Namespace) -> int:
     from ndtmap.grid.summary import format_summary, grid_summary
-    from ndtmap.io.grid_files import open_grid
+    from ndtmap.io import open_grid
 
     ds = open_grid(args.path, validate=False)
     summary = grid_summary(ds, source=str(args.path))
@@ -86,7 +86,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
 # map
 # --------------------------------------------------------------------------
 def _open_valid(path: Path, args: argparse.Namespace) -> Any:
-    from ndtmap.io.grid_files import open_grid
+    from ndtmap.io import open_grid
 
     chunks = {"scan": args.chunk_scan} if getattr(args, "chunk_scan", None) else None
     lazy = True if getattr(args, "scheduler", None) else None  # a cluster computes dask-backed grids only
@@ -121,7 +121,7 @@ def cmd_map(args: argparse.Namespace) -> int:
         raise NdtmapError("--nominal-fsh applies only to --kind backwall-loss")
     result = map_by_kind(grid, args.kind, gate, **options).compute()
     if suffix == ".nc":
-        from ndtmap.io.grid_files import save_map
+        from ndtmap.io import save_map
 
         save_map(map_dataset(result), out)
     else:

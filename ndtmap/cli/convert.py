@@ -21,8 +21,7 @@ def _disk_bytes(path: Path) -> int:
 def cmd_convert(args: argparse.Namespace) -> int:
     """Run ``ndtmap convert``; returns the exit status."""
     from ndtmap.cluster import use_scheduler
-    from ndtmap.io.convert import convert_to_zarr
-    from ndtmap.io.grid_files import open_grid
+    from ndtmap.io import convert_to_zarr, open_grid
 
     show = not args.quiet and sys.stderr.isatty()
     with use_scheduler(args.scheduler):

@@ -82,7 +82,7 @@ def run_demo(
     """
     from ndtmap.grid.summary import format_summary, grid_summary
     from ndtmap.indications.tables import indications_csv, indications_text
-    from ndtmap.io.grid_files import atomic_write_text, open_grid, save_map
+    from ndtmap.io import atomic_write_text, open_grid, save_map
     from ndtmap.procedure.definition import first_look_procedure, procedure_to_toml, run_procedure
     from ndtmap.scans.maps import map_dataset
     from ndtmap.scans.sections import b_scan, d_scan

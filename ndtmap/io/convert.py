@@ -6,7 +6,7 @@ it so that every chunk holds whole A-scans (the full ``time`` axis) of a
 few scan lines, and writes the chunks one after the other, so the memory it
 needs is a few chunks whatever the size of the grid. The store is written
 under a temporary name in the target folder and renamed into place when it
-is complete (as :func:`ndtmap.io.grid_files.save_grid` does; a failed conversion
+is complete (as :func:`ndtmap.io.save_grid` does; a failed conversion
 leaves no partial store and any old store unchanged).
 
 The chunks are computed by dask's local threads, or, inside
@@ -28,48 +28,12 @@ import xarray as xr
 from ndtmap.errors import FileFormatError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import DIMS, validate_grid
-from ndtmap.io import grid_files as _io
+from ndtmap.io.atomic import check_target, refuse_source, write_atomically
+from ndtmap.io.chunking import zarr_chunks
+from ndtmap.io.containers import open_grid
+from ndtmap.io.paths import as_path
 
-__all__ = ["DEFAULT_CHUNK_BYTES", "convert_to_zarr", "write_zarr", "zarr_chunks"]
-
-#: Target size of one chunk (uncompressed): big enough for fast sequential reads, small enough that a few
-#: of them in memory at once stay far below what a laptop has.
-DEFAULT_CHUNK_BYTES = 16 * 2**20
-
-
-def zarr_chunks(shape: tuple[int, int, int], itemsize: int, *, chunk_scan: int | None = None,
-                chunk_bytes: int = DEFAULT_CHUNK_BYTES) -> tuple[int, int, int]:
-    """Chunk sizes ``(scan, index, time)`` of a converted store: whole A-scans, whole index lines if they fit.
-
-    Parameters
-    ----------
-    shape : (n_scan, n_index, n_time)
-    itemsize : int
-        Bytes per sample.
-    chunk_scan : int, optional
-        Scan lines per chunk; default as many whole index lines as fit in
-        `chunk_bytes` (at least one).
-    chunk_bytes : int
-        Target uncompressed chunk size in bytes.
-
-    Examples
-    --------
-    >>> zarr_chunks((500, 500, 1000), 2)      # 16 scan lines of 500 int16 A-scans of 2 kB: 16 MB
-    (16, 500, 1000)
-    >>> zarr_chunks((500, 500, 1000), 2, chunk_scan=8)
-    (8, 500, 1000)
-    """
-    n_scan, n_index, n_time = (int(v) for v in shape)
-    ascan_bytes = max(1, n_time * itemsize)
-    per_chunk = max(1, chunk_bytes // ascan_bytes)  # A-scans per chunk
-    if chunk_scan is not None:
-        c_scan = min(n_scan, chunk_scan)
-        c_index = n_index if c_scan * n_index <= 4 * per_chunk else max(1, per_chunk // c_scan)
-        return c_scan, min(n_index, c_index), n_time
-    if n_index <= per_chunk:
-        return min(n_scan, max(1, per_chunk // n_index)), n_index, n_time
-    return 1, min(n_index, per_chunk), n_time
-
+__all__ = ["convert_to_zarr", "write_zarr"]
 
 def _active_client() -> Any:
     """The distributed client dask would use now, or None (distributed is not imported just to ask)."""
@@ -119,14 +83,14 @@ def convert_to_zarr(
     Parameters
     ----------
     source : path-like
-        A grid :func:`ndtmap.io.grid_files.open_grid` reads (``.json`` sidecar of a raw
+        A grid :func:`ndtmap.io.open_grid` reads (``.json`` sidecar of a raw
         dump, ``.nc``, ``.zarr``).
     target : path-like
         The new store, a folder whose name ends in ``.zarr``.
     chunk_scan : int, optional
         Scan lines per chunk (every chunk holds whole A-scans and, when they
         fit, whole index lines); default about 16 MiB per chunk
-        (:func:`zarr_chunks`).
+        (:func:`ndtmap.io.zarr_chunks`).
     compress : bool, default True
         Lossless Blosc-zstd (level 1) with byte shuffle and a CRC32C
         checksum per chunk; False stores plain chunks (faster to write and
@@ -156,7 +120,7 @@ def convert_to_zarr(
     >>> import pathlib, tempfile
     >>> import numpy as np
     >>> from ndtmap.grid.schema import make_grid
-    >>> from ndtmap.io.grid_files import export_raw, open_grid
+    >>> from ndtmap.io import export_raw, open_grid
     >>> g = make_grid(np.ones((6, 4, 8), np.int16), scan_mm=np.arange(6.0), index_mm=np.arange(4.0),
     ...               time_us=np.arange(8) * 0.02, velocity_m_s=5920, probe_frequency_mhz=5,
     ...               probe_diameter_mm=10, fsh_per_count=100 / 32767)
@@ -167,17 +131,17 @@ def convert_to_zarr(
     ...     back.ascan.encoding["chunks"], bool((back.ascan == g.ascan).all())
     ((4, 4, 8), True)
     """
-    src = _io._as_path("source", source)
-    dst = _io._as_path("target", target)
+    src = as_path("source", source)
+    dst = as_path("target", target)
     _check_options(dst, chunk_scan=chunk_scan, compress=compress, overwrite=overwrite, progress=progress)
     if dst.exists() and src.exists() and dst.resolve() == src.resolve():
         raise FileFormatError(f"refusing to convert {src} onto itself; choose another `target`")
-    peek = _io.open_grid(src, lazy=True)
+    peek = open_grid(src, lazy=True)
     shape = tuple(int(peek.sizes[d]) for d in DIMS)
     itemsize = peek["ascan"].dtype.itemsize
     peek.close()
     c_scan, c_index, _ = zarr_chunks(shape, itemsize, chunk_scan=None if chunk_scan is None else int(chunk_scan))
-    grid = _io.open_grid(src, chunks={"scan": c_scan, "index": c_index}, lazy=True)
+    grid = open_grid(src, chunks={"scan": c_scan, "index": c_index}, lazy=True)
     try:
         return write_zarr(grid, dst, chunk_scan=chunk_scan, compress=compress, overwrite=overwrite,
                           progress=progress, step=("convert", {"source": src.name}))
@@ -198,7 +162,7 @@ def write_zarr(
     """Write a scan grid (in memory or dask-backed) to a Zarr v3 store in chunks of whole A-scans, atomically.
 
     The chunks of the store are the dask chunks of the written grid:
-    ``(chunk_scan, index, time)`` (:func:`zarr_chunks`), so every chunk is
+    ``(chunk_scan, index, time)`` (:func:`ndtmap.io.zarr_chunks`), so every chunk is
     computed, encoded and written once, a few at a time; a dask-backed grid
     of any size is written with the memory of a few chunks. Like
     :func:`convert_to_zarr` (whose writer this is), the chunks are computed
@@ -220,7 +184,7 @@ def write_zarr(
     pathlib.Path
         `target`.
     """
-    dst = _io._as_path("target", target)
+    dst = as_path("target", target)
     _check_options(dst, chunk_scan=chunk_scan, compress=compress, overwrite=overwrite, progress=progress)
     validate_grid(grid, check_values=False)
     shape = tuple(int(grid.sizes[d]) for d in DIMS)
@@ -229,8 +193,8 @@ def write_zarr(
     name, params = step or ("write_zarr", {})
     out = grid.chunk({"scan": c_scan, "index": c_index, "time": -1}).drop_encoding()
     out = with_step(out, name, {**params, "chunks": [c_scan, c_index, shape[2]], "compress": compress})
-    _io._refuse_source(grid, dst)
-    _io._check_target(dst, overwrite=overwrite, is_dir=True)
+    refuse_source(grid, dst)
+    check_target(dst, overwrite=overwrite, is_dir=True)
     encoding = _encoding(out, (c_scan, c_index), compress)
 
     def write(temp: Path) -> None:
@@ -256,7 +220,7 @@ def write_zarr(
         if failed is not None:
             failed.result()
 
-    _io._write_atomically(dst, write, is_dir=True, lazy=True)
+    write_atomically(dst, write, is_dir=True, lazy=True)
     return dst
 
 

@@ -192,7 +192,7 @@ def write_figure(
         For an unknown extension, a missing folder or a failed export; no
         partial file is left behind.
     """
-    from ndtmap.io.grid_files import atomic_write_bytes, atomic_write_text
+    from ndtmap.io import atomic_write_bytes, atomic_write_text
 
     p = Path(path)
     ext = p.suffix.lower().lstrip(".")
@@ -208,7 +208,7 @@ def write_plotly_js(folder: str | os.PathLike[str]) -> Path:
     """Write ``plotly.min.js`` (from the installed plotly package) into `folder`, for offline HTML."""
     from plotly.offline import get_plotlyjs
 
-    from ndtmap.io.grid_files import atomic_write_text
+    from ndtmap.io import atomic_write_text
 
     return atomic_write_text(Path(folder) / "plotly.min.js", get_plotlyjs())
 

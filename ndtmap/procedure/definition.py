@@ -500,7 +500,7 @@ def procedure_to_toml(procedure: Procedure) -> str:
 
 def save_procedure(procedure: Procedure, path: str | os.PathLike[str]) -> Path:
     """Write `procedure` to a TOML file atomically (temporary file, then rename)."""
-    from ndtmap.io.grid_files import atomic_write_text
+    from ndtmap.io import atomic_write_text
 
     return atomic_write_text(Path(path), procedure_to_toml(procedure))
 

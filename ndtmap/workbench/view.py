@@ -66,7 +66,7 @@ def open_workbench(grid_or_path: xr.Dataset | str | os.PathLike[str], *, procedu
     ----------
     grid_or_path : xarray.Dataset or path
         A scan grid, or the path of one (opened with
-        :func:`ndtmap.io.grid_files.open_grid`; large files are opened lazily).
+        :func:`ndtmap.io.open_grid`; large files are opened lazily).
     procedure : Procedure or path, optional
         Gates and settings to start from (default: the first-look procedure
         derived from the grid, see
@@ -85,7 +85,7 @@ def open_workbench(grid_or_path: xr.Dataset | str | os.PathLike[str], *, procedu
     GridError, FileFormatError, ProcedureError, GateError
         For a grid or procedure that cannot be used.
     """
-    from ndtmap.io.grid_files import open_grid
+    from ndtmap.io import open_grid
 
     if isinstance(grid_or_path, xr.Dataset):
         grid, source = grid_or_path, None

@@ -13,11 +13,11 @@ import pytest
 import xarray as xr
 from helpers.burst_grids import STEEL_L
 
-import ndtmap.io.grid_files as nio
+import ndtmap.io.raw as raw_module
 from ndtmap.cli.convert import register
 from ndtmap.errors import FileFormatError, ParameterError
 from ndtmap.grid import make_grid, read_provenance
-from ndtmap.io import convert_to_zarr, export_raw, open_grid, save_grid, write_zarr, zarr_chunks
+from ndtmap.io import convert_to_zarr, export_raw, open_grid, save_grid, write_zarr
 
 
 def counts_grid(n_scan=9, n_index=5, n_time=64, missing=True):
@@ -44,14 +44,6 @@ def assert_same_grid(a, b):
     for key in ("velocity_m_s", "part_id", "probe_frequency_mhz"):
         assert a.attrs[key] == b.attrs[key]
     assert a["ascan"].attrs.get("fsh_per_count") == b["ascan"].attrs.get("fsh_per_count")
-
-
-def test_chunk_sizes():
-    # whole A-scans in every chunk; about the requested bytes
-    assert zarr_chunks((500, 500, 1000), 2) == (16, 500, 1000)
-    assert zarr_chunks((500, 500, 1000), 2, chunk_scan=16) == (16, 500, 1000)
-    c_scan, c_index, c_time = zarr_chunks((10, 100_000, 4000), 4)  # index lines of 1.6 GB: split along index
-    assert c_time == 4000 and c_scan == 1 and c_index * 4000 * 4 <= 16 * 2**20
 
 
 def test_raw_dump_to_zarr_keeps_every_sample(tmp_path):
@@ -107,7 +99,7 @@ def test_targets_are_checked_and_failures_leave_nothing(tmp_path, monkeypatch):
     before = (store / "ascan" / "zarr.json").read_bytes()
 
     calls = {"n": 0}
-    original = nio._RawFile.__getitem__
+    original = raw_module._RawFile.__getitem__
 
     def failing(self, key):
         calls["n"] += 1
@@ -115,7 +107,7 @@ def test_targets_are_checked_and_failures_leave_nothing(tmp_path, monkeypatch):
             raise OSError("simulated read error")
         return original(self, key)
 
-    monkeypatch.setattr(nio._RawFile, "__getitem__", failing)
+    monkeypatch.setattr(raw_module._RawFile, "__getitem__", failing)
     with pytest.raises(FileFormatError, match="simulated read error"):
         convert_to_zarr(raw, store, overwrite=True, chunk_scan=2)
     assert (store / "ascan" / "zarr.json").read_bytes() == before  # the old store is untouched

@@ -26,7 +26,7 @@ from pathlib import Path
 import xarray as xr
 
 from ndtmap.errors import FileFormatError, ParameterError
-from ndtmap.io.grid_files import save_grid
+from ndtmap.io import save_grid
 from ndtmap.simulate.reflectors import FlatBottomHole, PlanarReflector
 from ndtmap.simulate.scan import simulate_scan
 from ndtmap.simulate.scenario import Material, Noise, Part, Probe, ScanPlan, WallLoss

@@ -1,6 +1,6 @@
 """A steel plate scan grid that carries everything a file round trip must keep, and file helpers.
 
-Shared by the tests of ndtmap.io (imported as ``from plate_files import plate``; pytest puts this folder
+Shared by the tests of ndtmap.io (imported as ``from helpers.plate_files import plate``; pytest puts this folder
 on the path). Physical values: steel longitudinal velocity 5920 m/s, Krautkramer, Ultrasonic Testing of
 Materials, table of velocities (from memory).
 """

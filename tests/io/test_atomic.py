@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import xarray as xr
-from plate_files import assert_same_grid, file_digest, listing, plate
+from helpers.plate_files import assert_same_grid, file_digest, listing, plate
 
 import ndtmap.io.atomic as atomic
 from ndtmap.errors import FileFormatError

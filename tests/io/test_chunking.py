@@ -8,7 +8,7 @@ from __future__ import annotations
 import dask.array as da
 import numpy as np
 import pytest
-from plate_files import plate
+from helpers.plate_files import plate
 
 import ndtmap.io.chunking as chunking
 from ndtmap.errors import ParameterError

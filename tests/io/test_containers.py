@@ -16,7 +16,7 @@ import h5py
 import numpy as np
 import pytest
 import xarray as xr
-from plate_files import STEEL_L_M_S, assert_same_grid, file_digest, listing, plate
+from helpers.plate_files import STEEL_L_M_S, assert_same_grid, file_digest, listing, plate
 
 from ndtmap.errors import FileFormatError, GridError, ParameterError
 from ndtmap.grid import ascan_in_fsh, grid_problems, missing_ascans, read_provenance, with_step

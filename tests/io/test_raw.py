@@ -15,7 +15,7 @@ from pathlib import Path
 import dask.array as da
 import numpy as np
 import pytest
-from plate_files import file_digest, listing, plate
+from helpers.plate_files import file_digest, listing, plate
 
 import ndtmap.io.sidecar as sidecar_module
 from ndtmap.errors import FileFormatError, GridError, ParameterError

@@ -98,11 +98,12 @@ _LAZY_NAMES: dict[str, str] = {
     "write_report": "ndtmap.report",
 }
 
-#: Subpackages and modules reachable as attributes (``ndtmap.io``) without an import statement of their own.
+#: Library subpackages and modules reachable as attributes (``ndtmap.io``) without an import statement of their
+#: own (the command line, ``ndtmap.cli``, is not part of the library).
 _SUBMODULES = frozenset(
     {
-        "cli", "cluster", "errors", "gates", "grid", "indications", "io", "physics", "plot", "procedure",
-        "report", "scans", "signal", "simulate", "workbench",
+        "cluster", "errors", "gates", "grid", "indications", "io", "physics", "plot", "procedure", "report",
+        "scans", "signal", "simulate", "workbench",
     }
 )
 

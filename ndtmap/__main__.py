@@ -2,6 +2,6 @@
 
 import sys
 
-from ndtmap.cli.app import main
+from ndtmap.cli import main
 
 sys.exit(main())

@@ -7,6 +7,8 @@ chooses that scheduler: :func:`use_scheduler` connects a
 :class:`distributed.Client` to a running scheduler for the duration of a
 ``with`` block and closes it afterwards; nothing else in ndtmap knows about
 clusters, and no state outlives the block beyond what dask itself keeps.
+The command line's ``--scheduler ADDRESS`` option (commands ``map``,
+``indications``, ``report``, ``convert``) calls :func:`use_scheduler`.
 
 The workers read the grid themselves, so they must see its file under the
 same path (a shared or local file system), and they must be able to import
@@ -28,17 +30,14 @@ On a cluster (not run here)::
 
 from __future__ import annotations
 
-import argparse
-import functools
-from collections.abc import Callable, Iterator
+from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 from urllib.parse import urlsplit
 
 from ndtmap.errors import ParameterError, ParameterTypeError
 
-__all__ = ["SCHEDULER_SCHEMES", "check_scheduler_address", "use_scheduler", "add_scheduler_argument",
-           "with_scheduler"]
+__all__ = ["SCHEDULER_SCHEMES", "check_scheduler_address", "use_scheduler"]
 
 #: Address schemes of a Dask distributed scheduler that ndtmap accepts.
 SCHEDULER_SCHEMES = ("tcp", "tls", "ws", "wss", "inproc", "ucx")
@@ -133,32 +132,3 @@ def use_scheduler(address: str | None, *, timeout_s: float = _CONNECT_TIMEOUT_S)
         yield client
     finally:
         client.close()
-
-
-def add_scheduler_argument(parser: argparse.ArgumentParser) -> None:
-    """Add the common ``--scheduler ADDRESS`` option to a sub-command's parser.
-
-    Examples
-    --------
-    >>> p = argparse.ArgumentParser()
-    >>> add_scheduler_argument(p)
-    >>> p.parse_args(["--scheduler", "tcp://127.0.0.1:8786"]).scheduler
-    'tcp://127.0.0.1:8786'
-    """
-    parser.add_argument(
-        "--scheduler",
-        metavar="ADDRESS",
-        help="compute on the Dask distributed scheduler at ADDRESS (tcp://host:port); the grid is then opened "
-        "lazily and its file must be readable by the workers under the same path",
-    )
-
-
-def with_scheduler(command: Callable[[argparse.Namespace], int]) -> Callable[[argparse.Namespace], int]:
-    """Wrap a command-line function so that it runs inside ``use_scheduler(args.scheduler)``."""
-
-    @functools.wraps(command)
-    def run(args: argparse.Namespace) -> int:
-        with use_scheduler(getattr(args, "scheduler", None)):
-            return command(args)
-
-    return run

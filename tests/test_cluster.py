@@ -12,7 +12,7 @@ import pytest
 import xarray as xr
 from helpers.burst_grids import STEEL_L, plate_grid
 
-from ndtmap.cli.app import main
+from ndtmap.cli import main
 from ndtmap.cluster import check_scheduler_address, use_scheduler
 from ndtmap.errors import ParameterError, ParameterTypeError
 from ndtmap.gates import Gate, evaluate_gates
@@ -117,3 +117,20 @@ def test_indications_command_with_a_scheduler(cluster, tmp_path, capsys):
     assert main(["indications", *args, "--scheduler", cluster.scheduler_address]) == 0
     remote = json.loads(capsys.readouterr().out)
     assert remote["indications"] == local["indications"]
+
+
+def test_importing_the_module_does_not_import_dask():
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    import ndtmap
+
+    root = Path(ndtmap.__file__).resolve().parent.parent
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(filter(None, (str(root), os.environ.get("PYTHONPATH")))))
+    code = "import sys, ndtmap.cluster; print(sorted(m for m in sys.modules if m.split('.')[0] in ('dask', " \
+           "'distributed')))"
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=120,
+                          check=True)
+    assert proc.stdout.strip() == "[]"

@@ -1,7 +1,6 @@
 """The ``ndtmap convert`` command: a raw dump or NetCDF grid to a chunked Zarr v3 store.
 
-Added to the command line through ``ndtmap.cli.app._EXTRA_COMMANDS`` with
-:func:`register`. The work is done by :func:`ndtmap.io.convert.convert_to_zarr`.
+The work is done by :func:`ndtmap.io.convert_to_zarr`.
 """
 
 from __future__ import annotations
@@ -10,6 +9,9 @@ import argparse
 import sys
 from pathlib import Path
 from typing import Any
+
+from ndtmap.cli._scheduler import add_scheduler_argument
+from ndtmap.cluster import use_scheduler
 
 __all__ = ["register", "cmd_convert"]
 
@@ -20,7 +22,7 @@ def _disk_bytes(path: Path) -> int:
 
 def cmd_convert(args: argparse.Namespace) -> int:
     """Run ``ndtmap convert``; returns the exit status."""
-    from ndtmap.cluster import use_scheduler
+    # imported on use, like every library module in the command line: building the parser stays cheap
     from ndtmap.io import convert_to_zarr, open_grid
 
     show = not args.quiet and sys.stderr.isatty()
@@ -45,8 +47,6 @@ def cmd_convert(args: argparse.Namespace) -> int:
 
 def register(subparsers: Any) -> None:
     """Add the ``convert`` sub-command to the ``ndtmap`` command line."""
-    from ndtmap.cluster import add_scheduler_argument
-
     p = subparsers.add_parser(
         "convert",
         help="convert a raw dump (.json sidecar) or a NetCDF grid into a chunked Zarr store, block by block",

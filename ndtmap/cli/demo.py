@@ -4,11 +4,14 @@ Open the grid, check it, run the sample's written procedure (calibration,
 gates, C-scans, sections, indications sized by 6 dB drop and DGS, screening
 rules), write the maps, a B-scan and a D-scan through the largest indication,
 the indication table and a report bundle, and print where everything is.
-Every step calls the same library functions as the other commands.
+Every step calls the same library functions as the other commands; the
+library modules are imported inside the functions, so that building the
+parser stays cheap.
 """
 
 from __future__ import annotations
 
+import argparse
 import json
 import math
 from collections.abc import Callable
@@ -16,10 +19,10 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
-from ndtmap import CAUTION
+from ndtmap._shared.caution import CAUTION
 from ndtmap.errors import ParameterError
 
-__all__ = ["run_demo", "SAMPLE_PROCEDURES", "procedure_for_sample"]
+__all__ = ["register", "cmd_demo", "run_demo", "SAMPLE_PROCEDURES", "procedure_for_sample"]
 
 #: The written procedure shipped for each sample grid (package data), if any.
 SAMPLE_PROCEDURES: dict[str, str] = {
@@ -27,6 +30,19 @@ SAMPLE_PROCEDURES: dict[str, str] = {
     "forging_block.nc": "forging_procedure.toml",
     "corroded_wall.nc": "wall_thickness_procedure.toml",
 }
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    """Run ``ndtmap demo`` with parsed arguments; return the exit status."""
+    return run_demo(output=Path(args.output), sample=args.sample, echo=print)
+
+
+def register(subparsers: Any) -> None:
+    """Add the ``demo`` sub-command to the ``ndtmap`` argument parser."""
+    p = subparsers.add_parser("demo", help="run the main job end to end on a bundled sample grid")
+    p.add_argument("-o", "--output", default="ndtmap-demo-output", help="folder for the results")
+    p.add_argument("--sample", default="plate_laminations.nc", help="sample grid to use")
+    p.set_defaults(func=cmd_demo)
 
 
 def procedure_for_sample(sample: str) -> Any:

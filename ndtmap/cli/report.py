@@ -14,15 +14,22 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from ndtmap import CAUTION
-from ndtmap.cluster import add_scheduler_argument, with_scheduler
+from ndtmap._shared.caution import CAUTION
+from ndtmap.cli._scheduler import add_scheduler_argument, with_scheduler
 
 __all__ = ["register", "cmd_report"]
+
+# Copies of ndtmap.procedure.FIGURE_KINDS and ndtmap.report.REPORT_FORMATS, so that building the parser does not
+# import the report machinery; tests/cli/test_parser.py checks that they stay equal.
+#: Figure kinds of ``--figures``.
+FIGURE_KINDS = ("amplitude", "depth", "backwall_loss", "thickness", "bscan", "dscan", "ascan", "dgs")
+#: Static figure formats of ``--formats``.
+REPORT_FORMATS = ("png", "svg", "pdf")
 
 
 def cmd_report(args: argparse.Namespace) -> int:
     """Run ``ndtmap report`` with parsed arguments; return the exit status."""
-    from ndtmap.report.bundle import write_report
+    from ndtmap.report import write_report  # imported on use: keeps the parser's start-up cheap
 
     formats = args.formats if args.formats is not None else ["png", "svg"]
     inputs: Any = args.paths[0] if len(args.paths) == 1 else list(args.paths)
@@ -49,9 +56,6 @@ def cmd_report(args: argparse.Namespace) -> int:
 
 def register(subparsers: Any) -> None:
     """Add the ``report`` sub-command to the ``ndtmap`` argument parser."""
-    from ndtmap.procedure.definition import FIGURE_KINDS
-    from ndtmap.report.bundle import REPORT_FORMATS
-
     p = subparsers.add_parser(
         "report",
         help="write a report folder (HTML page, figures, indication table, settings, provenance)",

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from ndtmap.cli.app import main
+from ndtmap.cli import main
 from ndtmap.io import open_grid
 from ndtmap.simulate import sample_path, scan_truth
 

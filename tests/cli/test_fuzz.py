@@ -22,7 +22,7 @@ from pathlib import Path
 import pytest
 from helpers.fuzz_corpus import all_cases
 
-from ndtmap.cli.app import main
+from ndtmap.cli import main
 
 CASES = all_cases()
 TIME_LIMIT_S = 60

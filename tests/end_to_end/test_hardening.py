@@ -18,7 +18,7 @@ import pytest
 import xarray as xr
 
 from ndtmap import make_grid
-from ndtmap.cli.app import main
+from ndtmap.cli import main
 from ndtmap.errors import NdtmapError
 from ndtmap.gates import Gate
 from ndtmap.indications import size_indications

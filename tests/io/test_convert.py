@@ -117,7 +117,7 @@ def test_targets_are_checked_and_failures_leave_nothing(tmp_path, monkeypatch):
 def cli_main(argv):
     import argparse
 
-    from ndtmap.cli import app as cli
+    from ndtmap.errors import NdtmapError
 
     parser = argparse.ArgumentParser(prog="ndtmap")
     sub = parser.add_subparsers(dest="command")
@@ -125,7 +125,7 @@ def cli_main(argv):
     args = parser.parse_args(argv)
     try:
         return args.func(args)
-    except cli.NdtmapError as exc:
+    except NdtmapError as exc:
         return f"error: {exc}"
 
 
@@ -144,7 +144,7 @@ def test_convert_command(tmp_path, capsys):
 
 
 def test_convert_is_registered_on_the_command_line(tmp_path, capsys):
-    from ndtmap.cli.app import main
+    from ndtmap.cli import main
 
     g = counts_grid()
     raw = export_raw(g, tmp_path / "KFP-PL-2041.json")

@@ -28,7 +28,7 @@ import pytest
 
 import ndtmap
 from ndtmap import CAUTION
-from ndtmap.cli.app import main
+from ndtmap.cli import main
 from ndtmap.errors import NdtmapError, ParameterError
 from ndtmap.io import open_grid, save_grid
 from ndtmap.plot import find_chromium

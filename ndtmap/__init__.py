@@ -1,7 +1,7 @@
 """ndtmap: an open workbench for encoded pulse-echo ultrasonic scans.
 
 A scan grid (an :class:`xarray.Dataset` of A-scans on scan and index
-positions, see :mod:`ndtmap.grid.schema`) goes in; gates, C-scan maps, B- and
+positions, see :mod:`ndtmap.grid`) goes in; gates, C-scan maps, B- and
 D-scan sections, sized indications and reports come out.
 
 Results of ndtmap are inputs to an engineering assessment. They must be
@@ -18,7 +18,7 @@ Examples
 --------
 >>> import ndtmap
 >>> ndtmap.Gate.__module__
-'ndtmap.gates.evaluate'
+'ndtmap.gates.gate'
 >>> "open_grid" in dir(ndtmap)
 True
 """

@@ -149,7 +149,7 @@ def cmd_map(args: argparse.Namespace) -> int:
 # --------------------------------------------------------------------------
 def cmd_indications(args: argparse.Namespace) -> int:
     from ndtmap.indications.tables import indications_csv, indications_text
-    from ndtmap.procedure.definition import load_procedure, procedure_from_options, run_procedure
+    from ndtmap.procedure import load_procedure, procedure_from_options, run_procedure
 
     grid = _open_valid(args.path, args)
     if args.procedure is not None:

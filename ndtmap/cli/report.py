@@ -49,7 +49,7 @@ def cmd_report(args: argparse.Namespace) -> int:
 
 def register(subparsers: Any) -> None:
     """Add the ``report`` sub-command to the ``ndtmap`` argument parser."""
-    from ndtmap.procedure.definition import FIGURE_KINDS
+    from ndtmap.procedure import FIGURE_KINDS
     from ndtmap.report.bundle import REPORT_FORMATS
 
     p = subparsers.add_parser(

@@ -966,7 +966,7 @@ def _write_part(item: _Input, grid: xr.Dataset, proc: Any, folder: Path, writer:
     from ndtmap.grid.provenance import jsonable, read_provenance
     from ndtmap.grid.summary import grid_summary
     from ndtmap.indications.tables import indications_csv
-    from ndtmap.procedure.definition import procedure_to_toml, run_procedure
+    from ndtmap.procedure import procedure_to_toml, run_procedure
 
     analysis = run_procedure(grid, proc, source=item.label)
     part_id = grid.attrs.get("part_id")
@@ -1109,7 +1109,7 @@ def write_report(
 
     from ndtmap.io.grid_files import open_grid
     from ndtmap.plot.export import export_session, find_chromium, write_plotly_js
-    from ndtmap.procedure.definition import FIGURE_KINDS, Procedure, first_look_procedure, load_procedure
+    from ndtmap.procedure import FIGURE_KINDS, Procedure, first_look_procedure, load_procedure
 
     t_start = time.perf_counter()
     items, batch, paths = _inputs(paths_or_grids)

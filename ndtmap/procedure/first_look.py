@@ -91,8 +91,8 @@ def first_look_procedure(grid: xr.Dataset) -> Procedure:
     Examples
     --------
     >>> from ndtmap.grid.examples import example_grid
-    >>> p = first_look_procedure(example_grid((4.0, 8.0), (40.0, 80.0)).assign_attrs(part_thickness_mm=23.68))
-    >>> p.first_look, [g.name for g in p.gates], p.detection_level
+    >>> p = first_look_procedure(example_grid((8.0,), (80.0,)).assign_attrs(part_thickness_mm=23.68))
+    >>> p.first_look, [g.name for g in p.gates], p.detection_level  # nothing but the back wall: 10 %FSH
     (True, ['flaw', 'backwall'], '10 %FSH')
     """
     theta = part_constants(grid).beam_angle_deg

@@ -190,8 +190,8 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
     >>> g = example_grid((4.0, 8.0), (60.0, 80.0)).assign_attrs(part_thickness_mm=23.68)
     >>> p = Procedure("survey", (Gate("flaw", 5.0, 20.0, threshold_fsh=20.0),), "flaw")
     >>> a = run_procedure(g, p)
-    >>> [(r.id, r.peak_fsh, r.flags) for r in a.indications]
-    [(1, 60.0, ('at_scan_edge',))]
+    >>> [(r.id, r.peak_fsh, round(r.depth_mm, 2)) for r in a.indications]
+    [(1, 60.0, 11.84)]
     """
     proc = procedure
     if proc.velocity_m_s is not None or proc.zero_offset_us is not None:

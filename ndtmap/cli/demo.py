@@ -47,7 +47,7 @@ def register(subparsers: Any) -> None:
 
 def procedure_for_sample(sample: str) -> Any:
     """The packaged procedure for a sample grid name (see :data:`SAMPLE_PROCEDURES`), or None."""
-    from ndtmap.procedure.definition import load_procedure
+    from ndtmap.procedure import load_procedure
 
     name = SAMPLE_PROCEDURES.get(sample)
     if name is None:
@@ -99,7 +99,7 @@ def run_demo(
     from ndtmap.grid.summary import format_summary, grid_summary
     from ndtmap.indications.tables import indications_csv, indications_text
     from ndtmap.io import atomic_write_text, open_grid, save_map
-    from ndtmap.procedure.definition import first_look_procedure, procedure_to_toml, run_procedure
+    from ndtmap.procedure import first_look_procedure, procedure_to_toml, run_procedure
     from ndtmap.scans.maps import map_dataset
     from ndtmap.scans.sections import b_scan, d_scan
 

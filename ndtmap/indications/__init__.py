@@ -1,4 +1,15 @@
-"""ndtmap.indications."""
+"""Indications: detection, sizing, validity flags, DGS and screening of gated C-scan maps.
+
+The whole chain is :func:`size_indications`, which returns one
+:class:`IndicationRecord` per indication (``to_dict()`` is the JSON record of
+``ndtmap indications``); its options are grouped in :class:`DetectionOptions`,
+:class:`LossOptions`, :class:`SizingOptions`, :class:`DgsOptions`,
+:class:`FlagOptions` and :class:`EchoCheck`. :func:`screen_records` is the one
+screening step, :func:`largest_indication` the one rule for the largest
+indication. The steps are public too: :func:`detect_indications`,
+:func:`drop_length` and the other sizes, :func:`equivalent_fbh_diameter`,
+the flags of :data:`FLAG_MEANINGS`, :func:`classify_echoes`, :func:`screen`.
+"""
 
 from ndtmap.indications.detection import (
     Indication,
@@ -14,8 +25,11 @@ from ndtmap.indications.dgs import (
     dgs_diagram,
     equivalent_fbh_diameter,
     far_field_fbh_diameter,
+    sound_region_mask,
 )
 from ndtmap.indications.echoes import (
+    EchoCheck,
+    EchoFindings,
     classify_echoes,
     echo_half_length_mm,
 )
@@ -29,10 +43,23 @@ from ndtmap.indications.flags import (
     noise_level_fsh,
     repeat_echo_notes,
 )
+from ndtmap.indications.options import (
+    DetectionOptions,
+    DgsOptions,
+    FlagOptions,
+    LossOptions,
+    SizingOptions,
+)
 from ndtmap.indications.pipeline import (
-    RECORD_KEYS,
+    map_detection_level,
     scanned_area_mm2,
     size_indications,
+)
+from ndtmap.indications.record import (
+    OPTIONAL_KEYS,
+    RECORD_KEYS,
+    IndicationRecord,
+    largest_indication,
 )
 from ndtmap.indications.rules import (
     QUANTITIES,
@@ -46,6 +73,7 @@ from ndtmap.indications.rules import (
     parse_rules,
     screen,
 )
+from ndtmap.indications.screening import screen_records
 from ndtmap.indications.sizing import (
     AreaResult,
     BeamCorrectedLength,
@@ -86,6 +114,7 @@ __all__ = [
     "equivalent_fbh_diameter",
     "far_field_fbh_diameter",
     "backwall_reference_fsh",
+    "sound_region_mask",
     "dgs_diagram",
     "FLAG_MEANINGS",
     "FLAGS",
@@ -97,6 +126,8 @@ __all__ = [
     "explain",
     "classify_echoes",
     "echo_half_length_mm",
+    "EchoCheck",
+    "EchoFindings",
     "QUANTITIES",
     "RecordingLevel",
     "Limit",
@@ -107,9 +138,19 @@ __all__ = [
     "load_rules",
     "parse_rules",
     "screen",
+    "screen_records",
     "size_indications",
     "scanned_area_mm2",
+    "map_detection_level",
+    "DetectionOptions",
+    "LossOptions",
+    "SizingOptions",
+    "DgsOptions",
+    "FlagOptions",
+    "IndicationRecord",
+    "largest_indication",
     "RECORD_KEYS",
+    "OPTIONAL_KEYS",
     "CSV_COLUMNS",
     "indications_csv",
     "indications_text",

@@ -50,12 +50,14 @@ from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import with_step
 from ndtmap.indications.detection import Indication
 from ndtmap.physics import beam
+from ndtmap.scans import nominal_backwall_fsh
 
 __all__ = [
     "DgsResult",
     "equivalent_fbh_diameter",
     "far_field_fbh_diameter",
     "backwall_reference_fsh",
+    "sound_region_mask",
     "dgs_diagram",
 ]
 
@@ -241,19 +243,20 @@ def equivalent_fbh_diameter(
     return DgsResult(float(d), model, near, float(ratio_db), z, zb, n, tuple(notes))
 
 
-def backwall_reference_fsh(
-    backwall_map: xr.DataArray,
+def sound_region_mask(
+    value_map: xr.DataArray,
     *,
     sound_region: xr.DataArray | np.ndarray | None = None,
     exclude: Iterable[Indication] = (),
     grow: int = 2,
-) -> float:
-    """Back-wall reference level: the median back-wall amplitude of a sound region.
+    name: str = "backwall_map",
+) -> np.ndarray:
+    """Valid positions of a map that count as sound: in `sound_region`, outside the indications grown by `grow`.
 
     Parameters
     ----------
-    backwall_map : xarray.DataArray (scan, index)
-        Back-wall echo amplitude, %FSH.
+    value_map : xarray.DataArray (scan, index)
+        The map (back-wall amplitude or depth); NaN positions are left out.
     sound_region : bool array or DataArray (scan, index), optional
         Positions known to be sound. Default: every valid position outside
         the regions of `exclude` grown by `grow` positions.
@@ -261,32 +264,21 @@ def backwall_reference_fsh(
         Indications whose neighbourhood is left out.
     grow : int, default 2
         Positions added around excluded regions.
+    name : str
+        Name of the map in error messages.
 
     Returns
     -------
-    float
-        %FSH.
-
-    Raises
-    ------
-    CalibrationError
-        When no valid position is left.
-
-    Examples
-    --------
-    >>> import numpy as np, xarray as xr
-    >>> bw = np.full((4, 4), 80.0); bw[0, 0] = 10.0
-    >>> m = xr.DataArray(bw, dims=("scan", "index"), coords={"scan": np.arange(4.0), "index": np.arange(4.0)})
-    >>> backwall_reference_fsh(m)
-    80.0
+    numpy.ndarray of bool
+        True at the sound, valid positions (possibly none).
     """
-    bm = mg.as_map("backwall_map", backwall_map)
+    bm = mg.as_map(name, value_map)
     values = bm.values
     keep = np.isfinite(values)
     if sound_region is not None:
         if isinstance(sound_region, xr.DataArray):
             sr = mg.as_map("sound_region", sound_region)
-            mg.check_same_grid("sound_region", sr, "backwall_map", bm)
+            mg.check_same_grid("sound_region", sr, name, bm)
             region = sr.values != 0
         else:
             region = np.asarray(sound_region)
@@ -304,13 +296,55 @@ def backwall_reference_fsh(
             grown |= ind.region
     if grown.any() and grow > 0:
         grown = ndimage.binary_dilation(grown, structure=mg.STRUCTURE_8, iterations=int(grow))
-    keep &= ~grown
+    return keep & ~grown
+
+
+def backwall_reference_fsh(
+    backwall_map: xr.DataArray,
+    *,
+    sound_region: xr.DataArray | np.ndarray | None = None,
+    exclude: Iterable[Indication] = (),
+    grow: int = 2,
+) -> float:
+    """Back-wall reference level: the nominal back-wall amplitude of a sound region.
+
+    The median of the back-wall amplitude over the sound positions
+    (:func:`sound_region_mask`), by the one definition of the nominal level,
+    :func:`ndtmap.scans.nominal_backwall_fsh` (amplitudes below its floor of
+    0.1 %FSH count as the floor).
+
+    Parameters
+    ----------
+    backwall_map : xarray.DataArray (scan, index)
+        Back-wall echo amplitude, %FSH.
+    sound_region, exclude, grow
+        The sound positions, see :func:`sound_region_mask`.
+
+    Returns
+    -------
+    float
+        %FSH.
+
+    Raises
+    ------
+    CalibrationError
+        When no valid position is left, or the back-wall gate finds no echo there.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> bw = np.full((4, 4), 80.0); bw[0, 0] = 10.0
+    >>> m = xr.DataArray(bw, dims=("scan", "index"), coords={"scan": np.arange(4.0), "index": np.arange(4.0)})
+    >>> backwall_reference_fsh(m)
+    80.0
+    """
+    keep = sound_region_mask(backwall_map, sound_region=sound_region, exclude=exclude, grow=grow)
     if not keep.any():
         raise CalibrationError(
             "no valid back-wall position is left in the sound region; give a `sound_region` or a back-wall "
             "level in %FSH"
         )
-    return float(np.median(values[keep]))
+    return nominal_backwall_fsh(backwall_map, mask=keep)
 
 
 def dgs_diagram(

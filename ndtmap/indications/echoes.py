@@ -6,10 +6,13 @@ reflector, at twice its depth) is often the only echo in a deep gate while its
 primary sits in another gate or above the gate start. A practitioner then
 looks at the A-scan: is there a stronger echo at half (or a third) of the
 depth at the same probe position? :func:`classify_echoes` does that for every
-indication, and also marks echoes at the back-wall depth (geometry: the back
+indication, and also finds echoes at the back-wall depth (geometry: the back
 wall itself reached by the gate).
 
-Flags added (vocabulary in :data:`ndtmap.indications.flags.FLAG_MEANINGS`):
+Its findings, per indication id, are built into the records by
+:func:`ndtmap.size_indications` (``echoes=EchoCheck(grid)``); records are
+never changed afterwards. Flags found (vocabulary in
+:data:`ndtmap.indications.flags.FLAG_MEANINGS`):
 
 ``repeat_echo``
     At the indication's peak position the A-scan holds an echo at least as
@@ -26,16 +29,19 @@ bandwidth), so that the diffraction phase of each echo does not matter.
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, MutableMapping
+from collections.abc import Iterable
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
 from ndtmap._shared.validate import nonnegative_float
-from ndtmap.grid.schema import grid_attr
+from ndtmap.errors import ParameterTypeError
+from ndtmap.grid.geometry import part_constants
+from ndtmap.grid.schema import ascan_in_fsh, grid_attr
 
-__all__ = ["classify_echoes", "echo_half_length_mm"]
+__all__ = ["EchoFindings", "EchoCheck", "classify_echoes", "echo_half_length_mm"]
 
 
 def echo_half_length_mm(grid: xr.Dataset) -> float:
@@ -43,59 +49,62 @@ def echo_half_length_mm(grid: xr.Dataset) -> float:
 
     From the probe frequency and the fractional bandwidth attribute
     ``probe_bandwidth`` (0.5 when absent) for a Gaussian pulse:
-    ``sqrt(2 ln 10) sigma_t``, ``sigma_t = 2 sqrt(2 ln 2) / (2 pi B f)``.
+    ``sqrt(2 ln 10) sigma_t``, ``sigma_t = 2 sqrt(2 ln 2) / (2 pi B f)``,
+    turned into depth by the grid's time-to-depth mapping
+    (:class:`ndtmap.grid.geometry.PartConstants`).
 
     Examples
     --------
-    >>> import xarray as xr
-    >>> g = xr.Dataset(attrs={"probe_frequency_mhz": 5.0, "probe_bandwidth": 0.6, "velocity_m_s": 5920.0})
+    >>> from ndtmap.grid.examples import example_grid
+    >>> g = example_grid().assign_attrs(probe_frequency_mhz=5.0, probe_bandwidth=0.6, velocity_m_s=5920.0)
     >>> round(echo_half_length_mm(g), 2)
     0.8
     """
     f = float(grid_attr(grid, "probe_frequency_mhz"))
     bw = min(max(float(grid_attr(grid, "probe_bandwidth", 0.5)), 0.2), 1.5)
     sigma_t = 2.0 * math.sqrt(2.0 * math.log(2.0)) / (2.0 * math.pi * bw * f)
-    c = float(grid_attr(grid, "velocity_m_s")) * 1e-3
-    theta = math.radians(float(grid_attr(grid, "beam_angle_deg", 0.0)))
-    return 0.5 * c * math.sqrt(2.0 * math.log(10.0)) * sigma_t * math.cos(theta)
+    return part_constants(grid).depth_per_us() * math.sqrt(2.0 * math.log(10.0)) * sigma_t
 
 
-def _depth_of_samples(grid: xr.Dataset) -> np.ndarray:
-    t = np.asarray(grid["time"].values, dtype=np.float64)
-    zero = float(grid_attr(grid, "zero_offset_us", 0.0))
-    c = float(grid_attr(grid, "velocity_m_s")) * 1e-3
-    theta = math.radians(float(grid_attr(grid, "beam_angle_deg", 0.0)))
-    return 0.5 * c * (t - zero) * math.cos(theta)
+@dataclass(frozen=True)
+class EchoFindings:
+    """What the A-scan at an indication's peak says about it: flags (``repeat_echo``, ``backwall_echo``) and notes."""
+
+    flags: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
 
 
-def _add(rec: MutableMapping[str, Any], flag: str, note: str) -> None:
-    flags = rec.setdefault("flags", [])
-    if flag not in flags:
-        flags.append(flag)
-    rec.setdefault("notes", []).append(note)
+def _checked_indication(ind: Any, k: int) -> Any:
+    for name in ("id", "kind", "scan_mm", "index_mm", "depth_mm", "peak_fsh"):
+        if not hasattr(ind, name):
+            raise ParameterTypeError(
+                f"`indications[{k}]` must be an Indication or an IndicationRecord (it has no `{name}`), "
+                f"got {type(ind).__name__}"
+            )
+    return ind
 
 
 def classify_echoes(
     grid: xr.Dataset,
-    records: Iterable[MutableMapping[str, Any]],
+    indications: Iterable[Any],
     *,
     backwall_depth_mm: float | None = None,
     multiples: tuple[int, ...] = (2, 3),
     tolerance_mm: float = 1.0,
     tolerance_fraction: float = 0.03,
     min_depth_mm: float | None = None,
-) -> list[MutableMapping[str, Any]]:
-    """Flag repeat echoes and back-wall (geometry) echoes among indication records.
+) -> dict[int, EchoFindings]:
+    """Find repeat echoes and back-wall (geometry) echoes among indications, from the A-scans.
 
     Parameters
     ----------
     grid : xarray.Dataset
         The scan grid the indications come from (immersion grids are skipped:
         their depth axis depends on the interface).
-    records : iterable of dict
-        Indication records (as from :func:`ndtmap.size_indications`) with
-        ``kind``, ``scan_mm``, ``index_mm``, ``depth_mm``, ``peak_fsh``,
-        ``flags`` and ``notes``; changed in place and returned.
+    indications : iterable of Indication or IndicationRecord
+        With ``id``, ``kind``, ``scan_mm``, ``index_mm``, ``depth_mm`` and
+        ``peak_fsh`` (only amplitude indications with a depth are looked at).
+        Not changed.
     backwall_depth_mm : float, optional
         Nominal back-wall depth; default the grid's ``part_thickness_mm``.
     multiples : tuple of int, default (2, 3)
@@ -108,67 +117,104 @@ def classify_echoes(
 
     Returns
     -------
-    list of dict
-        The same records.
+    dict of int to EchoFindings
+        By indication id, for the indications with a finding. The sizing
+        pipeline builds the records with them
+        (:func:`ndtmap.size_indications` with ``echoes=EchoCheck(grid)``).
 
     Examples
     --------
     >>> from ndtmap.grid.examples import example_grid
     >>> g = example_grid((4.0, 8.0), (90.0, 30.0))  # echoes at 4 us and 8 us: depths 11.8 and 23.7 mm
-    >>> rec = {"kind": "amplitude", "scan_mm": 0.0, "index_mm": 0.0, "depth_mm": 23.68, "peak_fsh": 30.0}
-    >>> classify_echoes(g, [rec])[0]["flags"]
-    ['repeat_echo']
+    >>> class Echo:  # anything with these attributes, e.g. an Indication
+    ...     id, kind, scan_mm, index_mm, depth_mm, peak_fsh = 1, "amplitude", 0.0, 0.0, 23.68, 30.0
+    >>> classify_echoes(g, [Echo()])[1].flags
+    ('repeat_echo',)
     """
-    records = list(records)
+    indications = [_checked_indication(ind, k) for k, ind in enumerate(indications)]
     if "water_path_mm" in grid.attrs or "water_velocity_m_s" in grid.attrs:
-        return records
+        return {}
     nonnegative_float("tolerance_mm", tolerance_mm)
     nonnegative_float("tolerance_fraction", tolerance_fraction)
     if backwall_depth_mm is None:
         t = grid_attr(grid, "part_thickness_mm")
         backwall_depth_mm = t if isinstance(t, float) else None
-    depth = _depth_of_samples(grid)
+    pc = part_constants(grid)
+    depth = pc.depth_mm(pc.time_us)
     half = echo_half_length_mm(grid)
     floor = half * 2.0 if min_depth_mm is None else float(min_depth_mm)
-    from ndtmap.grid.schema import ascan_in_fsh
-
     signal = ascan_in_fsh(grid)
-    for rec in records:
-        d = rec.get("depth_mm")
-        peak = rec.get("peak_fsh")
-        if rec.get("kind", "amplitude") != "amplitude" or d is None or peak is None:
+    found: dict[int, EchoFindings] = {}
+    for ind in indications:
+        if ind.kind != "amplitude" or ind.depth_mm is None or ind.peak_fsh is None:
             continue
-        d, peak = float(d), float(peak)
+        flags: list[str] = []
+        notes: list[str] = []
+        d, peak = float(ind.depth_mm), float(ind.peak_fsh)
         if backwall_depth_mm is not None:
             tol = max(tolerance_mm, tolerance_fraction * backwall_depth_mm) + half
             if abs(d - backwall_depth_mm) <= tol:
-                _add(
-                    rec,
-                    "backwall_echo",
+                flags.append("backwall_echo")
+                notes.append(
                     f"the echo lies at the back-wall depth ({backwall_depth_mm:g} mm): a geometry echo of the "
-                    "back wall reached by the gate, not a reflector inside the wall",
+                    "back wall reached by the gate, not a reflector inside the wall"
                 )
-        a = np.abs(
-            np.asarray(
-                signal.sel(scan=rec["scan_mm"], index=rec["index_mm"], method="nearest").values, dtype=np.float64
-            )
-        )
-        if not np.all(np.isfinite(a)):
+        a = np.abs(np.asarray(signal.sel(scan=ind.scan_mm, index=ind.index_mm, method="nearest").values,
+                              dtype=np.float64))
+        if np.all(np.isfinite(a)):
+            repeat = _repeat_note(a, depth, d, peak, multiples, tolerance_mm, tolerance_fraction, half, floor)
+            if repeat is not None:
+                flags.append("repeat_echo")
+                notes.append(repeat)
+        if flags:
+            found[int(ind.id)] = EchoFindings(tuple(flags), tuple(notes))
+    return found
+
+
+def _repeat_note(a: np.ndarray, depth: np.ndarray, d: float, peak: float, multiples: tuple[int, ...],
+                 tolerance_mm: float, tolerance_fraction: float, half: float, floor: float) -> str | None:
+    """The note of the first repeat order k whose primary (at d / k) is at least as strong, or None."""
+    for k in multiples:
+        target = d / k
+        tol = max(tolerance_mm, tolerance_fraction * target) + half
+        sel = (depth >= max(target - tol, floor)) & (depth <= target + tol)
+        if not np.any(sel):
             continue
-        for k in multiples:
-            target = d / k
-            tol = max(tolerance_mm, tolerance_fraction * target) + half
-            sel = (depth >= max(target - tol, floor)) & (depth <= target + tol)
-            if not np.any(sel):
-                continue
-            primary = float(a[sel].max())
-            if primary >= peak:
-                at = float(depth[sel][int(np.argmax(a[sel]))])
-                _add(
-                    rec,
-                    "repeat_echo",
-                    f"the A-scan at the peak position holds a stronger echo ({primary:.1f} %FSH) at {at:.1f} mm, "
-                    f"1/{k} of this depth: probably its repeat echo (multiple reflection), not a separate reflector",
-                )
-                break
-    return records
+        primary = float(a[sel].max())
+        if primary >= peak:
+            at = float(depth[sel][int(np.argmax(a[sel]))])
+            return (
+                f"the A-scan at the peak position holds a stronger echo ({primary:.1f} %FSH) at {at:.1f} mm, "
+                f"1/{k} of this depth: probably its repeat echo (multiple reflection), not a separate reflector"
+            )
+    return None
+
+
+@dataclass(frozen=True, eq=False)
+class EchoCheck:
+    """Look at the A-scans of `grid` for repeat and back-wall echoes while sizing (see :func:`classify_echoes`).
+
+    Give it to :func:`ndtmap.size_indications` as ``echoes=``; the other
+    fields are :func:`classify_echoes`'s options.
+    """
+
+    grid: xr.Dataset
+    backwall_depth_mm: float | None = None
+    multiples: tuple[int, ...] = (2, 3)
+    tolerance_mm: float = 1.0
+    tolerance_fraction: float = 0.03
+    min_depth_mm: float | None = None
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.grid, xr.Dataset):
+            raise ParameterTypeError(
+                f"`echoes.grid` must be a scan grid (xarray.Dataset), got {type(self.grid).__name__}"
+            )
+
+    def findings(self, indications: Iterable[Any]) -> dict[int, EchoFindings]:
+        """:func:`classify_echoes` of `indications` with these options."""
+        return classify_echoes(
+            self.grid, indications, backwall_depth_mm=self.backwall_depth_mm, multiples=self.multiples,
+            tolerance_mm=self.tolerance_mm, tolerance_fraction=self.tolerance_fraction,
+            min_depth_mm=self.min_depth_mm,
+        )

@@ -63,6 +63,8 @@ __all__ = [
     "noise_level_fsh",
     "is_low_snr",
     "repeat_echo_notes",
+    "amplitude_flags",
+    "ordered_flags",
     "explain",
 ]
 
@@ -280,6 +282,64 @@ def repeat_echo_notes(
         if notes:
             out[ind.id] = notes
     return out
+
+
+def amplitude_flags(
+    ind: Indication,
+    *,
+    noise_fsh: float | None,
+    full_scale_fsh: float,
+    min_snr_db: float,
+    repeat_notes: Sequence[str] = (),
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The amplitude flags of one indication (``saturated``, ``low_snr``, ``repeat_echo``) and their notes.
+
+    Parameters
+    ----------
+    ind : Indication
+        An amplitude indication.
+    noise_fsh : float or None
+        Noise level of the map (:func:`noise_level_fsh`); None: ``low_snr`` not evaluated.
+    full_scale_fsh : float
+        Digitiser full scale, %FSH.
+    min_snr_db : float
+        ``low_snr`` below this peak-to-noise ratio, dB.
+    repeat_notes : sequence of str
+        This indication's notes from :func:`repeat_echo_notes` (``repeat_echo`` when any).
+
+    Returns
+    -------
+    (flags, notes) : tuple of tuple of str
+    """
+    flags: list[str] = []
+    notes: list[str] = []
+    if is_saturated(ind.peak_fsh, full_scale_fsh=full_scale_fsh):
+        flags.append("saturated")
+        notes.append(
+            f"peak {ind.peak_fsh:.1f} %FSH is at full scale: drop sizes are invalid and the DGS size is a lower "
+            "bound; rescan at lower gain"
+        )
+    if is_low_snr(ind.peak_fsh, noise_fsh, min_snr_db=min_snr_db):
+        flags.append("low_snr")
+        notes.append(
+            f"peak {ind.peak_fsh:.1f} %FSH is less than {min_snr_db:g} dB above the noise ({noise_fsh:.1f} %FSH)"
+        )
+    if repeat_notes:
+        flags.append("repeat_echo")
+        notes.extend(repeat_notes)
+    return tuple(flags), tuple(notes)
+
+
+def ordered_flags(flags: Iterable[str]) -> tuple[str, ...]:
+    """The distinct flags of `flags` in report order (:data:`FLAGS`); unknown names are dropped.
+
+    Examples
+    --------
+    >>> ordered_flags(["data_gap", "saturated", "data_gap"])
+    ('saturated', 'data_gap')
+    """
+    given = set(flags)
+    return tuple(f for f in FLAGS if f in given)
 
 
 def explain(flags: Iterable[str]) -> list[str]:

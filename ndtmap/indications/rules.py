@@ -25,6 +25,8 @@ from typing import Any
 
 from ndtmap._shared.validate import positive_float
 from ndtmap.errors import FileFormatError, ParameterTypeError, ProcedureError
+from ndtmap.indications.detection import Indication
+from ndtmap.indications.record import IndicationRecord
 
 __all__ = [
     "QUANTITIES",
@@ -432,33 +434,57 @@ def load_rules(path: str | os.PathLike[str]) -> Rules:
 # --------------------------------------------------------------------------- screening
 
 
-def _record(ind: Any, k: int) -> Mapping[str, Any]:
+@dataclass(frozen=True)
+class _Screened:
+    """What screening reads of one indication: id, kind, flags and the value of every quantity (None: missing)."""
+
+    id: int
+    kind: str
+    flags: tuple[str, ...]
+    values: dict[str, float | None]
+
+
+def _finite(v: Any) -> float | None:
+    if v is None or isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+        return None
+    return float(v)
+
+
+def _longer(*values: Any) -> float | None:
+    found = [v for v in (_finite(x) for x in values) if v is not None]
+    return max(found) if found else None
+
+
+def _from_record(rec: IndicationRecord) -> _Screened:
+    values = {q: _finite(getattr(rec, q)) for q in QUANTITIES if q not in ("length_mm", "length_20db_mm")}
+    values["length_mm"] = _longer(rec.length_scan_mm, rec.length_index_mm)
+    values["length_20db_mm"] = _longer(rec.length_scan_20db_mm, rec.length_index_20db_mm)
+    if rec.total_backwall_loss:
+        values["backwall_loss_db"] = math.inf
+    return _Screened(rec.id, rec.kind, rec.flags, values)
+
+
+def _from_mapping(rec: Mapping[str, Any], k: int) -> _Screened:
+    values = {q: _finite(rec.get(q)) for q in QUANTITIES if q not in ("length_mm", "length_20db_mm")}
+    values["length_mm"] = _longer(rec.get("length_scan_mm"), rec.get("length_index_mm"))
+    values["length_20db_mm"] = _longer(rec.get("length_scan_20db_mm"), rec.get("length_index_20db_mm"))
+    if rec.get("total_backwall_loss"):
+        values["backwall_loss_db"] = math.inf
+    return _Screened(int(rec.get("id", k + 1)), str(rec.get("kind", "amplitude")), tuple(rec.get("flags") or ()),
+                     values)
+
+
+def _screened(ind: Any, k: int) -> _Screened:
+    if isinstance(ind, IndicationRecord):
+        return _from_record(ind)
+    if isinstance(ind, Indication):
+        return _from_mapping(ind.as_dict(), k)
     if isinstance(ind, Mapping):
-        return ind
-    as_dict = getattr(ind, "as_dict", None)
-    if callable(as_dict):
-        return as_dict()
+        return _from_mapping(ind, k)
     raise ParameterTypeError(
-        f"`indications[{k}]` must be a record (dict from size_indications) or an Indication, got {type(ind).__name__}"
+        f"`indications[{k}]` must be an IndicationRecord (from size_indications), a mapping with the same keys "
+        f"or an Indication, got {type(ind).__name__}"
     )
-
-
-def _value(rec: Mapping[str, Any], quantity: str) -> float | None:
-    def num(key: str) -> float | None:
-        v = rec.get(key)
-        if v is None or isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
-            return None
-        return float(v)
-
-    if quantity == "length_mm":
-        vals = [v for v in (num("length_scan_mm"), num("length_index_mm")) if v is not None]
-        return max(vals) if vals else None
-    if quantity == "length_20db_mm":
-        vals = [v for v in (num("length_scan_20db_mm"), num("length_index_20db_mm")) if v is not None]
-        return max(vals) if vals else None
-    if quantity == "backwall_loss_db" and rec.get("total_backwall_loss"):
-        return math.inf
-    return num(quantity)
 
 
 def _statement(exceeded: Iterable[str]) -> str:
@@ -466,15 +492,55 @@ def _statement(exceeded: Iterable[str]) -> str:
     return "; ".join(f"exceeds rule {n}" for n in names) if names else "within rules"
 
 
+def _screen_one(item: _Screened, rules: Rules) -> IndicationScreening:
+    """The screening of one indication against the recording level and the limits."""
+    notes: list[str] = []
+    not_eval: list[str] = []
+    rl = rules.recording
+    if rl is not None and item.kind == "amplitude":
+        key, level = ("peak_fsh", rl.level_fsh) if rl.level_fsh is not None else ("peak_db", rl.level_db)
+        v = item.values[key]
+        if v is None:
+            not_eval.append(f"{rl.name}: no {key}")
+            notes.append(f"recording level {rl.name} not evaluated (no {key}); screened as recorded")
+        elif v < level:
+            return IndicationScreening(item.id, False, f"below recording level {rl.name}", (), tuple(not_eval),
+                                       tuple(notes))
+    exceeded: list[str] = []
+    for lim in rules.limits:
+        if lim.kind is not None and lim.kind != item.kind:
+            continue
+        v = item.values[lim.quantity]
+        if v is None:
+            not_eval.append(f"{lim.name}: no {lim.quantity}")
+            continue
+        sized = lim.quantity.startswith(("length", "area"))
+        if v > lim.max:
+            exceeded.append(lim.name)
+        elif sized and "at_scan_edge" in item.flags:
+            notes.append(f"{lim.name}: {lim.quantity} is a lower bound (at_scan_edge)")
+        if sized and "saturated" in item.flags:
+            notes.append(f"{lim.name}: {lim.quantity} from a saturated peak is not valid")
+        if lim.quantity == "ers_mm" and "saturated" in item.flags:
+            notes.append(f"{lim.name}: ers_mm from a saturated peak is a lower bound")
+    statement = _statement(exceeded)
+    if not_eval:
+        statement += " (not evaluated: " + ", ".join(n.split(":")[0] for n in not_eval) + ")"
+    return IndicationScreening(item.id, True, statement, tuple(exceeded), tuple(not_eval), tuple(notes))
+
+
 def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float) -> ScreeningResult:
     """Screen indications against rules.
 
     Parameters
     ----------
-    indications : iterable of dict or Indication
-        Records from :func:`ndtmap.indications.pipeline.size_indications` (or
-        :class:`~ndtmap.indications.detection.Indication` objects, which carry only
-        amplitude, position and detected area).
+    indications : iterable of IndicationRecord, mapping or Indication
+        Records from :func:`ndtmap.indications.pipeline.size_indications`
+        (read by attribute), mappings with the keys of their JSON form, or
+        :class:`~ndtmap.indications.detection.Indication` objects (which
+        carry only amplitude, position and detected area). To screen records
+        and keep the statements in them, use
+        :func:`ndtmap.indications.screening.screen_records`.
     rules : Rules
         From :func:`load_rules` or :func:`parse_rules`.
     scanned_area_mm2 : float
@@ -498,52 +564,19 @@ def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float)
     if not isinstance(rules, Rules):
         raise ParameterTypeError(f"`rules` must be Rules (from load_rules), got {type(rules).__name__}")
     area = positive_float("scanned_area_mm2", scanned_area_mm2)
-    recs = [_record(ind, k) for k, ind in enumerate(indications)]
+    items = [_screened(ind, k) for k, ind in enumerate(indications)]
     out: list[IndicationScreening] = []
     all_exceeded: list[str] = []
-    recorded_recs: list[Mapping[str, Any]] = []
-    for k, rec in enumerate(recs):
-        ident = rec.get("id", k + 1)
-        kind = rec.get("kind", "amplitude")
-        flags = list(rec.get("flags") or [])
-        notes: list[str] = []
-        not_eval: list[str] = []
-        rl = rules.recording
-        if rl is not None and kind == "amplitude":
-            key, level = ("peak_fsh", rl.level_fsh) if rl.level_fsh is not None else ("peak_db", rl.level_db)
-            v = _value(rec, key)
-            if v is None:
-                not_eval.append(f"{rl.name}: no {key}")
-                notes.append(f"recording level {rl.name} not evaluated (no {key}); screened as recorded")
-            elif v < level:
-                out.append(IndicationScreening(int(ident), False, f"below recording level {rl.name}",
-                                               (), tuple(not_eval), tuple(notes)))
-                continue
-        recorded_recs.append(rec)
-        exceeded: list[str] = []
-        for lim in rules.limits:
-            if lim.kind is not None and lim.kind != kind:
-                continue
-            v = _value(rec, lim.quantity)
-            if v is None:
-                not_eval.append(f"{lim.name}: no {lim.quantity}")
-                continue
-            if v > lim.max:
-                exceeded.append(lim.name)
-            elif lim.quantity.startswith(("length", "area")) and "at_scan_edge" in flags:
-                notes.append(f"{lim.name}: {lim.quantity} is a lower bound (at_scan_edge)")
-            if lim.quantity.startswith(("length", "area")) and "saturated" in flags:
-                notes.append(f"{lim.name}: {lim.quantity} from a saturated peak is not valid")
-            if lim.quantity == "ers_mm" and "saturated" in flags:
-                notes.append(f"{lim.name}: ers_mm from a saturated peak is a lower bound")
-        statement = _statement(exceeded)
-        if not_eval:
-            statement += " (not evaluated: " + ", ".join(n.split(":")[0] for n in not_eval) + ")"
-        all_exceeded.extend(n for n in exceeded if n not in all_exceeded)
-        out.append(IndicationScreening(int(ident), True, statement, tuple(exceeded), tuple(not_eval), tuple(notes)))
+    recorded: list[_Screened] = []
+    for item in items:
+        screening = _screen_one(item, rules)
+        out.append(screening)
+        if screening.recorded:
+            recorded.append(item)
+            all_exceeded.extend(n for n in screening.exceeded if n not in all_exceeded)
     densities: dict[str, float] = {}
     for dl in rules.densities:
-        count = sum(1 for r in recorded_recs if dl.kind is None or r.get("kind", "amplitude") == dl.kind)
+        count = sum(1 for r in recorded if dl.kind is None or r.kind == dl.kind)
         per_m2 = count / (area * 1e-6)
         densities[dl.name] = per_m2
         if per_m2 > dl.max_per_m2 and dl.name not in all_exceeded:

@@ -8,7 +8,7 @@ import math
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-from ndtmap.indications.pipeline import RECORD_KEYS
+from ndtmap.indications.record import RECORD_KEYS, IndicationRecord
 
 __all__ = ["CSV_COLUMNS", "indications_csv", "indications_text", "format_value"]
 
@@ -44,8 +44,13 @@ def format_value(value: Any, fmt: str = "{}") -> str:
         return str(value)
 
 
-def indications_text(records: Sequence[Mapping[str, Any]]) -> str:
-    """A fixed-width table of indications for a terminal.
+def _plain(rec: IndicationRecord | Mapping[str, Any]) -> Mapping[str, Any]:
+    """The JSON form of a record (records read back from JSON are already plain mappings)."""
+    return rec.to_dict() if isinstance(rec, IndicationRecord) else rec
+
+
+def indications_text(records: Sequence[IndicationRecord | Mapping[str, Any]]) -> str:
+    """A fixed-width table of indications for a terminal (records, or their JSON form).
 
     Examples
     --------
@@ -55,7 +60,7 @@ def indications_text(records: Sequence[Mapping[str, Any]]) -> str:
     if not records:
         return "no indications above the detection threshold"
     rows = [[h for _, h, _ in _TEXT_COLUMNS]]
-    for rec in records:
+    for rec in map(_plain, records):
         rows.append([format_value(rec.get(k), f) for k, _, f in _TEXT_COLUMNS])
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     lines = []
@@ -80,8 +85,8 @@ def _csv_cell(value: Any) -> Any:
     return value
 
 
-def indications_csv(records: Iterable[Mapping[str, Any]]) -> str:
-    """CSV text of indication records, one row each, columns :data:`CSV_COLUMNS`.
+def indications_csv(records: Iterable[IndicationRecord | Mapping[str, Any]]) -> str:
+    """CSV text of indication records (or their JSON form), one row each, columns :data:`CSV_COLUMNS`.
 
     Floats are written with full precision (``repr``) so the CSV and JSON
     outputs agree exactly; missing values are empty cells.
@@ -89,6 +94,6 @@ def indications_csv(records: Iterable[Mapping[str, Any]]) -> str:
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(CSV_COLUMNS)
-    for rec in records:
+    for rec in map(_plain, records):
         writer.writerow([_csv_cell(rec.get(k)) for k in CSV_COLUMNS])
     return buf.getvalue()

@@ -15,7 +15,8 @@ was used, and a provenance step. Missing A-scans are NaN in every map.
   ('echo-to-echo', independent of the zero offset) or from the interface echo
   to the back-wall echo ('interface-to-backwall', immersion).
 * :func:`backwall_loss_map`: dB by which the back-wall echo falls below its
-  nominal level.
+  nominal level, by the one definition :func:`backwall_loss_db` against
+  :func:`nominal_backwall_fsh`.
 * :func:`side_view` / :func:`end_view`: maximum of the rectified A-scans over
   ``index`` / ``scan``, on a depth axis.
 * :func:`map_by_kind`: one entry point by name, for the command line.
@@ -32,7 +33,7 @@ import xarray as xr
 
 from ndtmap._shared.arrays import is_lazy, netcdf_safe, result_attrs
 from ndtmap._shared.validate import interval, one_of, positive_float
-from ndtmap.errors import ParameterError, ParameterTypeError
+from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
 from ndtmap.gates import Gate, evaluate_gate, evaluate_gates
 from ndtmap.grid.geometry import depth_axis, leg_and_folded_depth, part_constants, sound_path_axis
 from ndtmap.grid.provenance import with_step
@@ -46,6 +47,8 @@ __all__ = [
     "depth_map",
     "thickness_map",
     "backwall_loss_map",
+    "backwall_loss_db",
+    "nominal_backwall_fsh",
     "side_view",
     "end_view",
     "map_by_kind",
@@ -326,6 +329,104 @@ def _region_mask(grid: xr.Dataset, sound_region: Mapping[str, Any]) -> xr.DataAr
     return mask.transpose("scan", "index")
 
 
+def backwall_loss_db(amplitude_fsh: Any, nominal_fsh: Any, *, floor_fsh: float = 0.1) -> Any:
+    """Back-wall echo loss in dB: ``20 log10(nominal / max(A, floor))``, positive where the echo is weaker.
+
+    The one definition of back-wall loss in ndtmap (maps, indications, the
+    workbench). The floor keeps a vanished back-wall echo at a large but
+    finite loss (``20 log10(nominal / floor)``, about 58 dB for an 80 %FSH
+    nominal and the default floor of 0.1 %FSH).
+
+    Parameters
+    ----------
+    amplitude_fsh : float, numpy.ndarray or xarray.DataArray
+        Back-wall echo amplitude, %FSH (the highest sample in the back-wall
+        gate); NaN where the A-scan is missing (the loss is NaN there).
+    nominal_fsh : float or array_like
+        Nominal back-wall echo, %FSH (> 0), e.g. from
+        :func:`nominal_backwall_fsh`.
+    floor_fsh : float, default 0.1
+        Least amplitude used in the ratio, %FSH (> 0).
+
+    Returns
+    -------
+    float, numpy.ndarray or xarray.DataArray
+        dB, of the kind of `amplitude_fsh` (DataArrays stay lazy).
+
+    Examples
+    --------
+    >>> round(backwall_loss_db(40.0, 80.0), 2), round(backwall_loss_db(0.0, 80.0), 1)
+    (6.02, 58.1)
+    >>> backwall_loss_db(np.array([20.0, np.nan]), 80.0).round(2).tolist()
+    [12.04, nan]
+    """
+    floor = positive_float("floor_fsh", floor_fsh)
+    if not isinstance(amplitude_fsh, xr.DataArray):
+        amplitude_fsh = np.asarray(amplitude_fsh, dtype=np.float64)
+    out = -db_re(np.maximum(amplitude_fsh, floor), nominal_fsh)
+    if isinstance(out, np.ndarray) and out.ndim == 0:
+        return float(out)
+    return out
+
+
+def nominal_backwall_fsh(amplitude_fsh: Any, *, mask: Any = None, floor_fsh: float = 0.1) -> float:
+    """Nominal back-wall echo level: the median of ``max(A, floor)`` over the valid positions of `mask`, %FSH.
+
+    The reference of :func:`backwall_loss_db` and of the DGS evaluation when
+    no level is given.
+
+    Parameters
+    ----------
+    amplitude_fsh : numpy.ndarray or xarray.DataArray
+        Back-wall echo amplitude, %FSH, NaN where missing (a dask-backed
+        DataArray is computed).
+    mask : bool array or xarray.DataArray of the same shape, optional
+        Positions known to be sound; default every position.
+    floor_fsh : float, default 0.1
+        Least amplitude counted, %FSH (> 0), as in :func:`backwall_loss_db`.
+
+    Returns
+    -------
+    float
+        %FSH.
+
+    Raises
+    ------
+    CalibrationError
+        When the mask holds no valid position, or when the median is at the
+        floor (no back-wall echo in the gate).
+
+    Examples
+    --------
+    >>> a = np.array([[80.0, 82.0], [np.nan, 5.0]])
+    >>> nominal_backwall_fsh(a), nominal_backwall_fsh(a, mask=np.array([[True, False], [True, True]]))
+    (80.0, 42.5)
+    """
+    floor = positive_float("floor_fsh", floor_fsh)
+    values = np.asarray(
+        amplitude_fsh.values if isinstance(amplitude_fsh, xr.DataArray) else amplitude_fsh, dtype=np.float64
+    )
+    keep = np.isfinite(values)
+    if mask is not None:
+        m = np.asarray(mask.values if isinstance(mask, xr.DataArray) else mask)
+        if m.shape != values.shape:
+            raise ParameterError(f"`mask` must have the shape of the amplitudes {values.shape}, got {m.shape}")
+        keep &= m.astype(bool)
+    chosen = values[keep]
+    if chosen.size == 0:
+        raise CalibrationError(
+            "the sound region holds only missing A-scans; mark another region or give the nominal back-wall "
+            "level (`nominal_fsh`)"
+        )
+    nominal = float(np.median(np.maximum(chosen, floor)))
+    if nominal <= floor:
+        raise CalibrationError(
+            f"the back-wall gate finds no echo in the sound region (median {nominal:g} %FSH); check the gate "
+            "or give the nominal back-wall level (`nominal_fsh`)"
+        )
+    return nominal
+
+
 def backwall_loss_map(
     grid: xr.Dataset,
     backwall_gate: Gate,
@@ -391,26 +492,14 @@ def backwall_loss_map(
     else:
         if is_lazy(amp):
             amp = amp.compute()
-        values = amp.values
         if sound_region is not None:
             mask = _region_mask(grid, sound_region).values
             source = f"median over the sound region {json.dumps({k: list(v) for k, v in sound_region.items()})}"
         else:
-            mask = np.ones(values.shape, dtype=bool)
+            mask = None
             source = "median over the whole scan"
-        chosen = values[mask & np.isfinite(values)]
-        if chosen.size == 0:
-            raise ParameterError(
-                "the sound region holds only missing A-scans; mark another region or give `nominal_fsh`"
-            )
-        nominal = float(np.median(np.maximum(chosen, floor)))
-        if nominal <= floor:
-            raise ParameterError(
-                f"the back-wall gate finds no echo in the sound region (median {nominal:g} %FSH); check the gate "
-                "or give `nominal_fsh`"
-            )
-    loss = -db_re(np.maximum(amp, floor), nominal)
-    loss = loss.where(amp.notnull())
+        nominal = nominal_backwall_fsh(amp, mask=mask, floor_fsh=floor)
+    loss = backwall_loss_db(amp, nominal, floor_fsh=floor)
     params = {"backwall_gate": backwall_gate.to_dict(), "nominal_fsh": nominal, "nominal_source": source,
               "floor_fsh": floor, "detect": detect}
     return _finish(loss, grid, name="backwall_loss_db", units="dB",

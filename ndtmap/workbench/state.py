@@ -67,7 +67,7 @@ from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import ascan_in_fsh, check_grid, grid_attr, missing_ascans
 from ndtmap.indications.flags import FLAG_MEANINGS
 from ndtmap.indications.sizing import LengthResult, drop_length
-from ndtmap.procedure.definition import Analysis, Procedure, load_procedure, procedure_to_toml, run_procedure
+from ndtmap.procedure import Analysis, Procedure, load_procedure, procedure_to_toml, run_procedure
 from ndtmap.scans import b_scan, backwall_loss_map, d_scan
 from ndtmap.signal import detected_signal
 from ndtmap.workbench import _compute as cx
@@ -192,7 +192,7 @@ def default_procedure(grid: xr.Dataset) -> Procedure:
     record) one gate over the middle 80 % of the recorded depth at
     20 %FSH.
     """
-    from ndtmap.procedure.definition import first_look_procedure
+    from ndtmap.procedure import first_look_procedure
 
     try:
         return first_look_procedure(grid)
@@ -873,7 +873,7 @@ class WorkbenchState:
         A screening-rules path is written relative to the new file's folder
         when possible.
         """
-        from ndtmap.procedure.definition import save_procedure
+        from ndtmap.procedure import save_procedure
 
         p = Path(path)
         if p.suffix.lower() != ".toml":

@@ -21,7 +21,7 @@ import pytest
 
 from ndtmap.gates import Gate, evaluate_gate
 from ndtmap.grid import calibration
-from ndtmap.indications import size_indications
+from ndtmap.indications import DetectionOptions, size_indications
 from ndtmap.io import open_grid
 from ndtmap.physics import beam
 from ndtmap.scans import maps
@@ -150,7 +150,8 @@ def test_plate_sample_laminations_sized_against_truth():
     truth = {r["label"]: r for r in scan_truth(grid)["reflectors"]}
     flaw = Gate("flaw", 1.0, 23.0, threshold_fsh=20.0)
     amp = maps.amplitude_map(grid, flaw)
-    recs = size_indications(amp, threshold_fsh=20.0, depth_map=maps.depth_map(grid, flaw), min_positions=2)
+    recs = size_indications(amp, threshold_fsh=20.0, depth_map=maps.depth_map(grid, flaw),
+                            detection=DetectionOptions(min_positions=2))
     step_scan, step_index = 1.5, 2.0
 
     def record_at(t):
@@ -185,7 +186,7 @@ def test_forging_small_reflectors_dgs_and_beam_width():
         depth_map=maps.depth_map(grid, flaw),
         backwall=maps.amplitude_map(grid, bw),
         backwall_depth_mm=maps.depth_map(grid, bw),
-        min_positions=3,
+        detection=DetectionOptions(min_positions=3),
     )
     lam = beam.wavelength_mm(5920.0, 2.0)
     for t in truth:

@@ -151,9 +151,10 @@ def test_size_indications_with_rules(tmp_path):
     path.write_text(RULES_TEXT)
     (rec,) = size_indications(m, threshold_fsh=20, rules=path)
     # 30 mm long > 25 and 600 mm^2 > 200
-    assert rec["screening"] == "exceeds rule long; exceeds rule big"
-    assert rec["exceeded_rules"] == ["long", "big"]
+    assert rec.screening == "exceeds rule long; exceeds rule big"
+    assert rec.exceeded_rules == ("long", "big")
+    assert rec.to_dict()["exceeded_rules"] == ["long", "big"]
     res = screen([rec], load_rules(path), scanned_area_mm2=scanned_area_mm2(m))
     assert res.densities_per_m2["crowded"] == pytest.approx(1 / (101 * 81 * 1e-6))
-    json.dumps(rec, allow_nan=False)
+    json.dumps(rec.to_dict(), allow_nan=False)
     assert scanned_area_mm2(make_map(np.full((2, 2), np.nan), [0.0, 1.0], [0.0, 1.0])) == 0.0

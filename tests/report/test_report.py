@@ -253,7 +253,7 @@ def test_first_look_is_stated_with_the_derived_values(tmp_path, monkeypatch, cap
     page = parse(out / "index.html")
     text = " ".join(" ".join(page.text).split())
     assert "First look: settings derived from the grid" in text
-    proc = ndtmap.procedure.definition.first_look_procedure(open_grid(sample_path("corroded_wall.nc")))
+    proc = ndtmap.procedure.first_look_procedure(open_grid(sample_path("corroded_wall.nc")))
     assert f"detection threshold {proc.gate('flaw').threshold_fsh:g} %FSH" in text
     flaw = proc.gate("flaw")
     assert f"gate “flaw”: {flaw.start:g} to {flaw.end:g} mm" in text

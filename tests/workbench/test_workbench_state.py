@@ -256,7 +256,7 @@ def test_measurement_follows_a_gate_edit(state):
 def test_indication_list_is_run_procedure_and_picking_centres_the_views(state, plate, plate_truth):
     recs = state.indications()
     ref = run_procedure(plate, state.procedure()).indications
-    assert json.dumps(recs) == json.dumps(ref)
+    assert [r.to_dict() for r in recs] == [r.to_dict() for r in ref]
     l1 = plate_truth["L1"]
     (s0, s1), (i0, i1) = l1["scan_range_mm"], l1["index_range_mm"]
     hit = [r for r in recs if r["kind"] == "amplitude" and s0 <= r["scan_mm"] <= s1 and i0 <= r["index_mm"] <= i1]
@@ -285,7 +285,7 @@ def test_threshold_edit_changes_the_indication_list(state, plate):
     base = first_look_procedure(plate)
     gates = tuple(replace(g, threshold_fsh=78.0) if g.name == "flaw" else g for g in base.gates)
     ref = run_procedure(plate, replace(base, gates=gates)).indications
-    assert json.dumps(after) == json.dumps(ref)
+    assert [r.to_dict() for r in after] == [r.to_dict() for r in ref]
     assert state.procedure().gate("flaw").threshold_fsh == 78.0
 
 
@@ -302,7 +302,7 @@ def test_saved_procedure_replayed_by_the_command_line_gives_the_same_indications
          str(path), "--format", "json"], capture_output=True, text=True, env=env, timeout=120, check=True,
     )
     doc = json.loads(out.stdout)
-    assert doc["indications"] == json.loads(json.dumps(state.indications()))
+    assert doc["indications"] == [r.to_dict() for r in state.indications()]
     assert ndtmap.CAUTION in doc["cautions"]
 
 

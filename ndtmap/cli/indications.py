@@ -23,7 +23,7 @@ __all__ = ["register", "cmd_indications"]
 
 def _procedure(args: argparse.Namespace) -> Any:
     """The procedure the options describe: the file of ``--procedure`` or one built from the gate options."""
-    from ndtmap.procedure.definition import load_procedure, procedure_from_options  # imported on use
+    from ndtmap.procedure import load_procedure, procedure_from_options  # imported on use
 
     if args.procedure is not None:
         if args.gate_mm is not None or args.threshold_fsh is not None:
@@ -65,7 +65,7 @@ def _print_table(args: argparse.Namespace, procedure: Any, analysis: Any) -> Non
 def cmd_indications(args: argparse.Namespace) -> int:
     """Run ``ndtmap indications`` with parsed arguments; return the exit status."""
     from ndtmap.indications import indications_csv
-    from ndtmap.procedure.definition import run_procedure
+    from ndtmap.procedure import run_procedure
 
     grid = open_input_grid(args.path, args)
     procedure = _procedure(args)

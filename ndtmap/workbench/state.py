@@ -7,7 +7,7 @@ the same functions as the command line: gates from
 :func:`ndtmap.gates.evaluate.evaluate_gate`, sections from :func:`ndtmap.scans.sections.b_scan`
 and :func:`~ndtmap.scans.sections.d_scan`, drop lengths from
 :func:`ndtmap.indications.sizing.drop_length`, the indication list from
-:func:`ndtmap.procedure.definition.run_procedure` (so ``ndtmap indications --procedure``
+:func:`ndtmap.procedure.run_procedure` (so ``ndtmap indications --procedure``
 on the saved settings gives the same list).
 
 The state draws nothing and has no widgets; :mod:`ndtmap.workbench.view`
@@ -187,7 +187,7 @@ class DropMeasurement:
 def default_procedure(grid: xr.Dataset) -> Procedure:
     """The procedure a workbench opens with when none is given.
 
-    The first-look procedure (:func:`ndtmap.procedure.definition.first_look_procedure`)
+    The first-look procedure (:func:`ndtmap.procedure.first_look_procedure`)
     where it can be derived; otherwise (angle beams, no back wall in the
     record) one gate over the middle 80 % of the recorded depth at
     20 %FSH.
@@ -889,7 +889,7 @@ class WorkbenchState:
         return save_procedure(proc, p)
 
     def analysis(self, *, progress: cx.Progress | None = None) -> Analysis:
-        """:func:`ndtmap.procedure.definition.run_procedure` on the grid with the current settings (cached)."""
+        """:func:`ndtmap.procedure.run_procedure` on the grid with the current settings (cached)."""
         proc = self.procedure()
         key = procedure_to_toml(proc)
         with self._lock:

@@ -16,7 +16,7 @@ import pytest
 
 import ndtmap
 import ndtmap.procedure
-import ndtmap.procedure.definition
+import ndtmap.procedure.run
 from ndtmap.errors import ParameterError
 from ndtmap.io import open_grid
 from ndtmap.procedure import load_procedure, run_procedure
@@ -31,13 +31,13 @@ RUN_TIME = re.compile(r"\d{4}-\d\d-\d\d \d\d:\d\d:\d\d")
 def count_runs(monkeypatch):
     """Count the calls of run_procedure, whichever module name the caller imports it by."""
     calls = []
-    real = ndtmap.procedure.definition.run_procedure
+    real = ndtmap.procedure.run.run_procedure
 
     def counted(*args, **kwargs):
         calls.append(kwargs.get("source"))
         return real(*args, **kwargs)
 
-    monkeypatch.setattr(ndtmap.procedure.definition, "run_procedure", counted)
+    monkeypatch.setattr(ndtmap.procedure.run, "run_procedure", counted)
     monkeypatch.setattr(ndtmap.procedure, "run_procedure", counted)
     return calls
 

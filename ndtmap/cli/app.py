@@ -126,7 +126,7 @@ def cmd_map(args: argparse.Namespace) -> int:
         save_map(map_dataset(result), out)
     else:
         from ndtmap.plot.export import write_figure
-        from ndtmap.plot.figures import map_figure
+        from ndtmap.plot.maps import map_figure
 
         write_figure(map_figure(result, title=f"{args.kind} map, gate {start:g}-{end:g} mm"), out)
     values = result.values

@@ -416,7 +416,7 @@ def _part_figures(analysis: Any, kinds: Sequence[str], part: str) -> tuple[list[
     from ndtmap.gates import evaluate_gates
     from ndtmap.grid.schema import grid_attr
     from ndtmap.indications.dgs import dgs_diagram
-    from ndtmap.plot.figures import (
+    from ndtmap.plot import (
         ascan_at,
         ascan_figure,
         dgs_figure,

@@ -21,9 +21,10 @@ from ndtmap.gates import Gate, evaluate_gate
 from ndtmap.grid import ascan_in_fsh, make_grid
 from ndtmap.indications import detect_indications, drop_length
 from ndtmap.procedure import load_procedure, run_procedure
-from ndtmap.scans import b_scan, d_scan, map_by_kind
+from ndtmap.scans import MAP_KINDS, b_scan, d_scan, map_by_kind
 from ndtmap.simulate import sample_path, scan_truth
-from ndtmap.workbench.state import MAP_KINDS, WorkbenchState, default_procedure, indication_details
+from ndtmap.workbench.listing import indication_details
+from ndtmap.workbench.state import WorkbenchState, default_procedure
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -196,9 +197,9 @@ def test_select_point_snaps_and_the_ascan_and_sections_are_those_of_the_grid(sta
     np.testing.assert_allclose(view.signal_fsh, np.abs(raw))  # rectified = |RF|
     np.testing.assert_allclose(view.rf_fsh, raw)
     marks = {m.name: m for m in view.gates}
-    assert marks["flaw"].triggered and marks["flaw"].start_depth_mm == pytest.approx(1.0)
+    assert marks["flaw"].triggered and marks["flaw"].start_at == pytest.approx(1.0)
     l1 = next(r for r in scan_truth(plate)["reflectors"] if r["label"].startswith("L1"))
-    assert marks["flaw"].event_depth_mm == pytest.approx(l1["depth_mm"], abs=0.5)  # the echo of lamination L1
+    assert marks["flaw"].event_at == pytest.approx(l1["depth_mm"], abs=0.5)  # the echo of lamination L1
     np.testing.assert_array_equal(state.b_scan().values, b_scan(plate, 24.0).values)
     np.testing.assert_array_equal(state.d_scan().values, d_scan(plate, 37.5).values)
     lines = {g.name: g for g in state.section_gates("scan")}

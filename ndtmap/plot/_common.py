@@ -143,7 +143,9 @@ def title_text(title: str | None, note: str | None = None) -> str | None:
     if title is None and not note:
         return None
     head = escape(title) if title is not None else ""
-    return head + (f"<br><sup>{escape(note)}</sup>" if note else "")
+    if not note:
+        return head
+    return head + ("<br>" if head else "") + f"<sup>{escape(note)}</sup>"
 
 
 def finish(fig: Any, kind: str, title: str | None, *, note: str | None = None, width: int | None = None,

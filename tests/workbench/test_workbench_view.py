@@ -5,21 +5,16 @@ are read back from the plotly FigureWidgets: the view must show what the state c
 """
 
 import html
-import math
 
 import numpy as np
-import plotly.graph_objects as go
 import pytest
 
 import ndtmap
 from ndtmap.indications import FLAG_MEANINGS
-from ndtmap.plot import find_chromium
-from ndtmap.plot.style import color_scale_for
+from ndtmap.plot import PLAN_TRACES
 from ndtmap.procedure import load_procedure
 from ndtmap.simulate import sample_path
-from ndtmap.plot import PLAN_TRACES
-from ndtmap.workbench import open_workbench, view_figures
-from ndtmap.workbench.state import WorkbenchState
+from ndtmap.workbench import open_workbench
 
 PLATE = sample_path("plate_laminations.nc")
 
@@ -193,14 +188,6 @@ def test_save_procedure_and_views(wb, tmp_path):
         html = (tmp_path / "out" / f"KFP-PL-2041-check-{view}.html").read_text(encoding="utf-8")
         assert "ISO 9712" in html  # the caution travels with every saved figure
     assert "wrote" in wb.save_message.value
-
-
-@pytest.mark.skipif(find_chromium() is None, reason="static export needs Chromium (apt-get install chromium)")
-def test_static_views_are_written_when_chromium_is_present(plate, tmp_path):
-    st = WorkbenchState(plate)
-    paths = view_figures.save_views(st, tmp_path, stem="v", formats=("png", "svg"))
-    assert {p.suffix for p in paths} == {".png", ".svg"}
-    assert (tmp_path / "v-plan.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature, ISO/IEC 15948
 
 
 def test_background_mode_keeps_the_state_usable_and_finishes(plate):

@@ -26,7 +26,7 @@ from ndtmap.errors import ParameterError, ParameterTypeError
 from ndtmap.gates import Gate
 from ndtmap.grid.geometry import PartConstants, depth_axis
 from ndtmap.grid.schema import check_grid
-from ndtmap.plot._common import escape, finish, fmt
+from ndtmap.plot._common import escape, fmt, new_figure
 from ndtmap.plot.style import INK, gate_colour
 from ndtmap.signal import detected_signal
 
@@ -119,44 +119,46 @@ def ascan_at(grid: xr.Dataset, scan_mm: float, index_mm: float, *, detect: str =
     return out.rename("amplitude_fsh")
 
 
-def _gate_traces(fig: Any, mark: GateMark, color: str, top: float, bipolar: bool, axis: str) -> None:
-    """One gate on the A-scan: shaded window, bar at the threshold (ticks at the ends), name, event."""
+def _gate_marks(mark: GateMark, color: str, top: float, bipolar: bool, axis: str
+                ) -> tuple[list[Any], list[dict[str, Any]], list[dict[str, Any]]]:
+    """One gate on the A-scan: its traces (bar at the threshold, event), shapes (shaded window) and labels."""
     import plotly.graph_objects as go
 
     label = mark.label()
     x0, x1 = mark.start_at, mark.end_at
     if x0 is None or x1 is None or not (math.isfinite(x0) and math.isfinite(x1)):
-        fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", line=dict(color=color, width=4),
-                                 name=label + ": window not known here", hoverinfo="skip"))
-        return
+        return [go.Scatter(x=[None], y=[None], mode="lines", line=dict(color=color, width=4),
+                           name=label + ": window not known here", hoverinfo="skip")], [], []
     thr = mark.threshold_fsh
     tick = 0.03 * top
-    fig.add_vrect(x0=x0, x1=x1, fillcolor=color, opacity=0.08, line_width=0, layer="below")
-    fig.add_trace(go.Scatter(x=[x0, x0, None, x0, x1, None, x1, x1],
-                             y=[thr - tick, thr + tick, None, thr, thr, None, thr - tick, thr + tick],
-                             mode="lines", line=dict(color=color, width=3), name=label, legendgroup=mark.name,
-                             hovertemplate=f"gate {escape(mark.name)}: threshold {thr:g} %FSH<extra></extra>"))
+    shapes = [dict(type="rect", xref="x", yref="paper", x0=x0, x1=x1, y0=0, y1=1, fillcolor=color, opacity=0.08,
+                   line_width=0, layer="below")]
+    traces = [go.Scatter(x=[x0, x0, None, x0, x1, None, x1, x1],
+                         y=[thr - tick, thr + tick, None, thr, thr, None, thr - tick, thr + tick],
+                         mode="lines", line=dict(color=color, width=3), name=label, legendgroup=mark.name,
+                         hovertemplate=f"gate {escape(mark.name)}: threshold {thr:g} %FSH<extra></extra>")]
     if bipolar:
-        fig.add_trace(go.Scatter(x=[x0, x1], y=[-thr, -thr], mode="lines", name=label + " (negative)",
+        traces.append(go.Scatter(x=[x0, x1], y=[-thr, -thr], mode="lines", name=label + " (negative)",
                                  line=dict(color=color, width=1.5, dash="dot"), legendgroup=mark.name,
                                  showlegend=False, hoverinfo="skip"))
-    fig.add_annotation(x=x0, y=thr + tick, xref="x", yref="y", text=f"<b>{escape(mark.name)}</b>", xanchor="left",
-                       yanchor="bottom", font=dict(size=11, color=color))
+    notes = [dict(x=x0, y=thr + tick, xref="x", yref="y", text=f"<b>{escape(mark.name)}</b>", xanchor="left",
+                  yanchor="bottom", font=dict(size=11, color=color))]
     if mark.triggered is None:
-        return
+        return traces, shapes, notes
     amp, at = mark.event_amplitude_fsh, mark.event_at
     if mark.triggered and at is not None and math.isfinite(at) and amp is not None:
         unit = "mm depth" if axis == "depth" else "us"
-        fig.add_trace(go.Scatter(
+        traces.append(go.Scatter(
             x=[at], y=[amp], mode="markers", name=f"{escape(mark.name)} event", legendgroup=mark.name,
             marker=dict(symbol="diamond", size=10, color=color, line=dict(color=INK, width=1)), showlegend=False,
             hovertemplate=f"{escape(mark.name)} event: {fmt(amp)} %FSH at {at:.2f} {unit}<extra></extra>",
         ))
-        fig.add_annotation(x=at, y=amp, xref="x", yref="y", text=f"{fmt(amp)} %FSH", xanchor="left",
-                           yanchor="bottom", xshift=6, font=dict(size=10, color=INK))
+        notes.append(dict(x=at, y=amp, xref="x", yref="y", text=f"{fmt(amp)} %FSH", xanchor="left",
+                          yanchor="bottom", xshift=6, font=dict(size=10, color=INK)))
     else:
-        fig.add_annotation(x=0.5 * (x0 + x1), y=thr - tick, xref="x", yref="y", yanchor="top",
-                           text=f"{escape(mark.name)}: no echo above the threshold", font=dict(size=10, color=color))
+        notes.append(dict(x=0.5 * (x0 + x1), y=thr - tick, xref="x", yref="y", yanchor="top",
+                          text=f"{escape(mark.name)}: no echo above the threshold", font=dict(size=10, color=color)))
+    return traces, shapes, notes
 
 
 def ascan_arrays_figure(
@@ -240,24 +242,31 @@ def ascan_arrays_figure(
         hover = "depth %{x:.2f} mm (t %{customdata:.3f} us)<br>%{y:.1f} %FSH<extra></extra>"
     traces.append(go.Scatter(x=x, y=y, mode="lines", name=escape(signal_name), line=dict(color=INK, width=1.2),
                              customdata=custom, hovertemplate=hover))
-    fig = go.Figure(data=traces)
     shown = np.concatenate([y, rf]) if rf is not None else y
     finite = shown[np.isfinite(shown)]
     top = max(100.0, float(finite.max()) if finite.size else 100.0)
     bipolar = bool(finite.size and finite.min() < 0)
     order = list(gate_order) if gate_order is not None else [m.name for m in marks]
+    shapes: list[dict[str, Any]] = []
+    notes: list[dict[str, Any]] = []
     for mark in marks:
         k = order.index(mark.name) if mark.name in order else len(order)
-        _gate_traces(fig, mark, gate_colour(k), top, bipolar, axis)
-    fig.update_xaxes(title_text=AXIS_TITLES[axis], range=[float(x[0]), float(x[-1])] if x.size else None)
-    low = -1.05 * top if bipolar else 0.0
-    fig.update_yaxes(title_text=f"{escape(amplitude_title)} [%FSH]", range=[low, 1.08 * top])
-    fig.update_layout(legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.18, yanchor="top"))
+        t, sh, no = _gate_marks(mark, gate_colour(k), top, bipolar, axis)
+        traces += t
+        shapes += sh
+        notes += no
     if title is None and position_mm is not None:
         title = f"A-scan at scan {position_mm[0]:.2f} mm, index {position_mm[1]:.2f} mm"
     if missing:
         title = (title or "A-scan") + " \u2013 missing A-scan"
-    return finish(fig, "ascan", title, width=width, height=height)
+    layout = dict(
+        shapes=shapes, annotations=notes,
+        xaxis=dict(title=dict(text=AXIS_TITLES[axis]), range=[float(x[0]), float(x[-1])] if x.size else None),
+        yaxis=dict(title=dict(text=f"{escape(amplitude_title)} [%FSH]"),
+                   range=[-1.05 * top if bipolar else 0.0, 1.08 * top]),
+        legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.18, yanchor="top"),
+    )
+    return new_figure("ascan", traces, layout, title=title, width=width, height=height)
 
 
 def _scalar(ds: Any, name: str, at: Mapping[str, float]) -> Any:

@@ -9,7 +9,7 @@ was recorded, at equal aspect; positions without a value are grey
 (:data:`~ndtmap.plot.style.MISSING_COLOR`). Indications are outlined by
 :mod:`ndtmap.plot.outlines` (the exact cells of their sizing region). The
 workbench's interactive plan view (:mod:`ndtmap.plot.plan`) draws its map
-with the same :func:`map_heatmap` and :func:`plan_axes`.
+with the same :func:`map_heatmap` and :func:`plan_layout`.
 """
 
 from __future__ import annotations
@@ -28,7 +28,7 @@ from ndtmap.plot._common import axis_title, cell_edges, checked_records, colour_
 from ndtmap.plot.outlines import indication_outlines, outline_traces
 from ndtmap.plot.style import AXIS_COLOR, INK, MARK_COLOR, MISSING_COLOR, color_scale_for, label_from_attrs, nice_length
 
-__all__ = ["map_figure", "thickness_figure", "map_heatmap", "plan_axes"]
+__all__ = ["map_figure", "thickness_figure", "map_heatmap", "plan_layout"]
 
 
 def map_heatmap(map_da: xr.DataArray) -> Any:
@@ -60,19 +60,21 @@ def map_heatmap(map_da: xr.DataArray) -> Any:
     )
 
 
-def plan_axes(fig: Any, map_da: xr.DataArray) -> tuple[np.ndarray, np.ndarray]:
-    """Set the axes of a plan view: mm titles, ranges to the cell edges, equal aspect, grey where no value.
+def plan_layout(map_da: xr.DataArray) -> tuple[dict[str, Any], np.ndarray, np.ndarray]:
+    """The axes of a plan view: mm titles, ranges to the cell edges, equal aspect, grey where no value.
 
-    Returns the cell edges along scan and index.
+    Returns the layout and the cell edges along scan and index.
     """
     scan, index = mg.coords_mm(map_da)
     xe, ye = cell_edges(scan), cell_edges(index)
-    fig.update_xaxes(title_text=axis_title(map_da, "scan", "scan axis position"), range=[xe[0], xe[-1]],
-                     constrain="domain", showgrid=False)
-    fig.update_yaxes(title_text=axis_title(map_da, "index", "index axis position"), range=[ye[0], ye[-1]],
-                     scaleanchor="x", scaleratio=1.0, constrain="domain", showgrid=False)
-    fig.update_layout(plot_bgcolor=MISSING_COLOR)
-    return xe, ye
+    layout = dict(
+        xaxis=dict(title=dict(text=axis_title(map_da, "scan", "scan axis position")), range=[xe[0], xe[-1]],
+                   constrain="domain", showgrid=False),
+        yaxis=dict(title=dict(text=axis_title(map_da, "index", "index axis position")), range=[ye[0], ye[-1]],
+                   scaleanchor="x", scaleratio=1.0, constrain="domain", showgrid=False),
+        plot_bgcolor=MISSING_COLOR,
+    )
+    return layout, xe, ye
 
 
 def _missing_legend() -> Any:
@@ -192,8 +194,8 @@ def map_figure(
         mg.check_same_grid("outline_map", mg.as_map("outline_map", outline_map), "map_da", m)
     outlines = indication_outlines(checked_records("indications", indications),
                                    map_da if outline_map is None else outline_map)
-    fig = go.Figure(data=[map_heatmap(map_da)])
-    xe, ye = plan_axes(fig, map_da)
+    layout, xe, ye = plan_layout(map_da)
+    fig = go.Figure(data=[map_heatmap(map_da)], layout=layout)
     if np.isnan(m.values).any():
         fig.add_trace(_missing_legend())
     fig.add_traces(outline_traces(outlines))

@@ -20,8 +20,8 @@ import numpy as np
 import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
-from ndtmap.plot._common import cell_edges, finish
-from ndtmap.plot.maps import map_heatmap, plan_axes
+from ndtmap.plot._common import cell_edges, new_figure
+from ndtmap.plot.maps import map_heatmap, plan_layout
 from ndtmap.plot.outlines import IndicationOutline, merged_outline_traces
 from ndtmap.plot.style import INK, MARK_COLOR, SELECTED_COLOR
 
@@ -192,19 +192,17 @@ def plan_figure(
     >>> len(fig.data) == len(PLAN_TRACES), list(fig.data[PLAN_TRACES.index("point")].x)
     (True, [1.0])
     """
-    import plotly.graph_objects as go
-
-    m = mg.as_map("map_da", map_da)
-    scan, index = mg.coords_mm(m)
-    fig = go.Figure(data=[map_heatmap(map_da)])
-    fig.add_traces(plan_overlays(scan, index, outlines=outlines, point=point, selected=selected, line_mm=line_mm,
-                                 pending_mm=pending_mm, length_ends_mm=length_ends_mm))
-    xe, ye = plan_axes(fig, map_da)
-    short = str(map_da.attrs.get("long_name", map_da.name or "value"))
+    scan, index = mg.coords_mm(mg.as_map("map_da", map_da))
+    traces = [map_heatmap(map_da), *plan_overlays(scan, index, outlines=outlines, point=point, selected=selected,
+                                                  line_mm=line_mm, pending_mm=pending_mm,
+                                                  length_ends_mm=length_ends_mm)]
+    layout, xe, ye = plan_layout(map_da)
     height = None
     if width is not None:
         span_s, span_i = float(xe[-1] - xe[0]), float(ye[-1] - ye[0])
         height = int(min(720, max(300, (width - 150) * span_i / max(span_s, 1e-9) + 110)))
-    fig.update_layout(margin=dict(l=60, r=10, t=56 if note else 40, b=50), clickmode="event", hovermode="closest",
-                      showlegend=False)
-    return finish(fig, "plan", title or f"Plan view \u2013 {short}", note=note, width=width, height=height)
+    layout.update(margin=dict(l=60, r=10, t=56 if note else 40, b=50), clickmode="event", hovermode="closest",
+                  showlegend=False)
+    short = str(map_da.attrs.get("long_name", map_da.name or "value"))
+    return new_figure("plan", traces, layout, title=title or f"Plan view \u2013 {short}", note=note, width=width,
+                      height=height)

@@ -7,7 +7,7 @@ from typing import Any
 import numpy as np
 
 from ndtmap.errors import ParameterError
-from ndtmap.plot._common import finish
+from ndtmap.plot._common import new_figure
 from ndtmap.plot.style import INK, MARK_COLOR
 
 __all__ = ["profile_figure", "PROFILE_TRACES"]
@@ -87,7 +87,6 @@ def profile_figure(
                 traces[3] = go.Scatter(x=[a, b], y=[lvl * 1.08, lvl * 1.08], mode="lines+text",
                                        line=dict(color=INK, width=1.5), text=text, textposition="top left",
                                        name="length", hoverinfo="skip")
-    fig = go.Figure(data=traces)
-    fig.update_layout(xaxis=dict(title="distance along the line [mm]"),
-                      yaxis=dict(title="amplitude [%FSH]", rangemode="tozero"), showlegend=False)
-    return finish(fig, "profile", title, width=width, height=height)
+    layout = dict(xaxis=dict(title=dict(text="distance along the line [mm]")),
+                  yaxis=dict(title=dict(text="amplitude [%FSH]"), rangemode="tozero"), showlegend=False)
+    return new_figure("profile", traces, layout, title=title, width=width, height=height)

@@ -19,7 +19,7 @@ import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
 from ndtmap.errors import ParameterError, ParameterTypeError
-from ndtmap.plot._common import axis_title, cell_edges, checked_records, colour_range, escape, finish, fmt
+from ndtmap.plot._common import axis_title, cell_edges, checked_records, colour_range, escape, fmt, new_figure
 from ndtmap.plot._common import field as rec_field
 from ndtmap.plot.outlines import _drop_ends, _hover
 from ndtmap.plot.style import ACCENTS, INK, MARK_COLOR, MISSING_COLOR, color_scale_for, gate_colour, label_from_attrs
@@ -117,11 +117,13 @@ def _crossing(section_da: xr.DataArray, rec: Any, x: np.ndarray, pos_dim: str, a
     return None
 
 
-def _indication_marks(fig: Any, section_da: xr.DataArray, recs: list[Any], x: np.ndarray, depth: np.ndarray,
-                      pos_dim: str, amplitude_map: xr.DataArray | None, edge: str) -> None:
-    """Mark amplitude indications crossed by the section: peak marker, 6 dB bracket, label."""
+def _indication_marks(section_da: xr.DataArray, recs: list[Any], x: np.ndarray, depth: np.ndarray, pos_dim: str,
+                      amplitude_map: xr.DataArray | None, edge: str) -> tuple[list[Any], list[dict[str, Any]]]:
+    """Marks of the amplitude indications the section crosses: peak marker, 6 dB bracket (traces), label."""
     import plotly.graph_objects as go
 
+    traces: list[Any] = []
+    notes: list[dict[str, Any]] = []
     span = float(depth[-1] - depth[0]) if depth.size > 1 else 1.0
     amp = mg.as_map("amplitude_map", amplitude_map) if amplitude_map is not None else None
     if amp is not None:
@@ -135,7 +137,7 @@ def _indication_marks(fig: Any, section_da: xr.DataArray, recs: list[Any], x: np
             continue
         xpk, ends = where
         zpk = float(rec["depth_mm"])
-        fig.add_trace(go.Scatter(
+        traces.append(go.Scatter(
             x=[xpk], y=[zpk], mode="markers", name="indication peak", legendgroup="ind",
             showlegend="peak" not in shown, hovertemplate=_hover(rec) + "<extra></extra>",
             marker=dict(symbol="x-thin", size=10, color=MARK_COLOR, line=dict(width=2.5, color=MARK_COLOR)),
@@ -145,15 +147,16 @@ def _indication_marks(fig: Any, section_da: xr.DataArray, recs: list[Any], x: np
         if ends is not None:
             a, b = ends
             h1, h2 = zpk - 0.02 * span, zpk - 0.05 * span
-            fig.add_trace(go.Scatter(
+            traces.append(go.Scatter(
                 x=[a, a, b, b], y=[h1, h2, h2, h1], mode="lines", line=dict(color=MARK_COLOR, width=2),
                 name="6 dB drop length", legendgroup="bracket", showlegend="bracket" not in shown, hoverinfo="skip",
             ))
             shown.add("bracket")
             label += f" 6 dB {fmt(rec_field(rec, f'length_{pos_dim}_mm'))} mm"
             top, xlab = h2, 0.5 * (a + b)
-        fig.add_annotation(x=xlab, y=top, xref="x", yref="y", text=label, yanchor="bottom",
-                           bgcolor="rgba(255,255,255,0.8)", font=dict(size=10))
+        notes.append(dict(x=xlab, y=top, xref="x", yref="y", text=label, yanchor="bottom",
+                          bgcolor="rgba(255,255,255,0.8)", font=dict(size=10)))
+    return traces, notes
 
 
 def section_figure(
@@ -235,21 +238,22 @@ def section_figure(
     cursor = go.Scatter(x=[] if c is None else [c, c], y=[] if c is None else [float(depth[0]), float(depth[-1])],
                         mode="lines", line=dict(color=_CURSOR_COLOR, width=1.5, dash="dot"), hoverinfo="skip",
                         showlegend=False, name="A-scan position")
-    fig = go.Figure(data=[heat, cursor, *_gate_traces(gates, gate_order)])
+    marks, notes = _indication_marks(section_da, recs, x, depth, pos_dim, amplitude_map, edge)
+    if c is not None:
+        notes.append(dict(x=c, y=1.0, xref="x", yref="paper", yanchor="bottom", text=f"A-scan at {c:.1f} mm",
+                          font=dict(size=10, color=INK)))
     depth_title = "depth below the scanning surface [mm]"
     if "depth" in section_da.coords and section_da["depth"].attrs.get("long_name"):
         depth_title = f"{escape(section_da['depth'].attrs['long_name'])} [mm]"
     xe = cell_edges(x)
-    fig.update_xaxes(title_text=axis_title(section_da, pos_dim, _POSITION_TITLES[pos_dim]), range=[xe[0], xe[-1]],
-                     showgrid=False)
-    yaxis: dict[str, Any] = dict(title_text=depth_title, autorange="reversed", showgrid=False)
+    yaxis: dict[str, Any] = dict(title=dict(text=depth_title), autorange="reversed", showgrid=False)
     if equal_aspect:
         yaxis.update(scaleanchor="x", scaleratio=1.0)
-    fig.update_yaxes(**yaxis)
-    fig.update_layout(plot_bgcolor=MISSING_COLOR)
-    _indication_marks(fig, section_da, recs, x, depth, pos_dim, amplitude_map, edge)
-    if c is not None:
-        fig.add_annotation(x=c, y=1.0, xref="x", yref="paper", yanchor="bottom", text=f"A-scan at {c:.1f} mm",
-                           font=dict(size=10, color=INK))
-    fig.update_layout(legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.14, yanchor="top"))
-    return finish(fig, "section", title, note=note, width=width, height=height)
+    layout = dict(
+        xaxis=dict(title=dict(text=axis_title(section_da, pos_dim, _POSITION_TITLES[pos_dim])), range=[xe[0], xe[-1]],
+                   showgrid=False),
+        yaxis=yaxis, plot_bgcolor=MISSING_COLOR, annotations=notes,
+        legend=dict(orientation="h", x=0.0, xanchor="left", y=-0.14, yanchor="top"),
+    )
+    return new_figure("section", [heat, cursor, *_gate_traces(gates, gate_order), *marks], layout, title=title,
+                      note=note, width=width, height=height)

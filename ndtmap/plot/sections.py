@@ -217,8 +217,8 @@ def section_figure(
     >>> from ndtmap.grid.examples import example_grid
     >>> from ndtmap.scans.sections import b_scan
     >>> fig = section_figure(b_scan(example_grid(), 0.0), cursor_mm=1.0)
-    >>> fig.layout.yaxis.autorange, fig.layout.yaxis.title.text, list(fig.data[1].x)
-    ('reversed', 'depth below the scanning surface [mm]', [1.0, 1.0])
+    >>> fig.layout.yaxis.range[0] > fig.layout.yaxis.range[1], fig.layout.yaxis.title.text, list(fig.data[1].x)
+    (True, 'depth below the scanning surface [mm]', [1.0, 1.0])
     """
     import plotly.graph_objects as go
 
@@ -245,8 +245,8 @@ def section_figure(
     depth_title = "depth below the scanning surface [mm]"
     if "depth" in section_da.coords and section_da["depth"].attrs.get("long_name"):
         depth_title = f"{escape(section_da['depth'].attrs['long_name'])} [mm]"
-    xe = cell_edges(x)
-    yaxis: dict[str, Any] = dict(title=dict(text=depth_title), autorange="reversed", showgrid=False)
+    xe, de = cell_edges(x), cell_edges(depth)
+    yaxis: dict[str, Any] = dict(title=dict(text=depth_title), range=[de[-1], de[0]], showgrid=False)  # down
     if equal_aspect:
         yaxis.update(scaleanchor="x", scaleratio=1.0)
     layout = dict(

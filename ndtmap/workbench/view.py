@@ -62,6 +62,13 @@ PROFILE_HEIGHT = 240
 _NOTE = "<div style='font-size:11px;line-height:1.35;color:#444'>"
 _ERROR = "color:#B00020"
 
+#: Layout of the side views in the widget, over the figures' own: small margins, short depth axis title, no legend
+#: on the A-scan (each gate's name is written on its bar).
+_SIDE_LAYOUT = {
+    "ascan": dict(margin=dict(l=60, r=10, t=40, b=44), showlegend=False, clickmode="event"),
+    "bscan": dict(margin=dict(l=60, r=10, t=62, b=44), yaxis=dict(title=dict(text="depth [mm]")), clickmode="event"),
+    "dscan": dict(margin=dict(l=60, r=10, t=62, b=44), yaxis=dict(title=dict(text="depth [mm]")), clickmode="event"),
+}
 _KIND_TEXT = {"amplitude": "peak amplitude", "depth": "event depth", "thickness": "wall thickness",
               "backwall-loss": "back-wall loss"}
 #: The map kinds of the tool bar: (label, kind) for every kind of ndtmap.scans.MAP_KINDS.
@@ -571,8 +578,8 @@ class Workbench:
             for key, fig in figs.items():
                 w = self.figures[key]
                 parts = ("title", "shapes", "annotations") + (("yaxis",) if key == "ascan" else ())
-                extra = {"meta": f"ndtmap-{key}"} if key == "ascan" else {"meta": f"ndtmap-{key}", "clickmode": "event"}
-                sync_traces(w, fig, parts=parts, whole_layout=len(w.data) == 0, **extra)
+                sync_traces(w, fig, parts=parts, whole_layout=len(w.data) == 0, meta=f"ndtmap-{key}",
+                            **_SIDE_LAYOUT[key])
         self._clicks_on()
 
     def _draw_ruler(self, meas: Any, err: BaseException | None = None) -> None:

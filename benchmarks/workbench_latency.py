@@ -83,9 +83,10 @@ def main() -> None:
 
     from ndtmap.gates import Gate, evaluate_gate, gate_window_us
     from ndtmap.procedure import Procedure
-    from ndtmap.workbench import _compute, plots
+    from ndtmap.workbench import _compute
+    from ndtmap.workbench import view_figures as vf
+    from ndtmap.workbench._sync import figure_widget, sync_traces
     from ndtmap.workbench.state import WorkbenchState
-    from ndtmap.workbench.view import _sync_traces
 
     t0 = time.perf_counter()
     grid = build_grid(*args.size)
@@ -153,14 +154,14 @@ def main() -> None:
         print(f"same, whole record (as ndtmap.scans.maps): {time.perf_counter() - t0:8.2f} s")
 
     # figure update: build the plan figure, copy it into a FigureWidget
-    plan = go.FigureWidget(plots.plan_figure(state.map(), point=state.point))
+    plan = figure_widget(vf.plan_view(state, state.map()))
     fig_t = []
     for e in ends[:5]:
         state.set_gate("flaw", end=e)  # from the cache: the map itself is ready
         m = state.map()
         t0 = time.perf_counter()
-        fig = plots.plan_figure(m, point=state.point)
-        _sync_traces(plan, fig, layout={"title": fig.layout.title.to_plotly_json()})
+        fig = vf.plan_view(state, m)
+        sync_traces(plan, fig, parts=("title",))
         fig_t.append(time.perf_counter() - t0)
     z = plan.data[0].z
     print(f"figure update (plan, thinned to {len(z)} x {len(z[0])} cells) {median_ms(fig_t)}")
@@ -169,18 +170,15 @@ def main() -> None:
     figs = {k: go.FigureWidget() for k in ("ascan", "bscan", "dscan")}
     click = []
     rng = np.random.default_rng(3)
-    order = list(state.gate_names)
     for _ in range(args.repeat):
         s, i = rng.uniform(0, args.size[0] - 1), rng.uniform(0, args.size[1] - 1)
         t0 = time.perf_counter()
         state.select_point(s, i)
-        fa = plots.ascan_figure(state.ascan(), gate_order=order)
-        fb = plots.section_figure(state.b_scan(), along="scan", cursor_mm=state.point[0],
-                                  gates=state.section_gates("scan"), gate_order=order)
-        fd = plots.section_figure(state.d_scan(), along="index", cursor_mm=state.point[1],
-                                  gates=state.section_gates("index"), gate_order=order)
+        fa = vf.ascan_view(state, state.ascan())
+        fb = vf.section_view(state, "scan", state.b_scan(), state.section_gates("scan"))
+        fd = vf.section_view(state, "index", state.d_scan(), state.section_gates("index"))
         for key, f in (("ascan", fa), ("bscan", fb), ("dscan", fd)):
-            _sync_traces(figs[key], f, layout={"title": f.layout.title.to_plotly_json()})
+            sync_traces(figs[key], f, parts=("title", "shapes", "annotations"))
         click.append(time.perf_counter() - t0)
     print(f"click -> A-scan + B/D-scans   {median_ms(click)}")
     print(f"goal for gate edit -> map: 150 ms; measured median {1e3 * statistics.median(edit):.0f} ms "

@@ -11,9 +11,11 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import html
 import os
 import re
 import shutil
+import textwrap
 import threading
 import warnings
 from collections.abc import Iterator
@@ -31,6 +33,7 @@ __all__ = [
     "figure_bytes",
     "stable_svg",
     "stable_pdf",
+    "with_caption",
 ]
 
 STATIC_FORMATS = ("png", "svg", "pdf")
@@ -136,6 +139,34 @@ def figure_bytes(
     return stable_pdf(data) if fmt == "pdf" else data
 
 
+def with_caption(fig: Any, caption: str, *, wrap: int = 110) -> Any:
+    """A copy of `fig` with `caption` written in small italics under it (e.g. the caution of a saved figure).
+
+    The figure grows by the caption's height, below the legend when the
+    legend is under the plot.
+
+    Examples
+    --------
+    >>> import plotly.graph_objects as go
+    >>> out = with_caption(go.Figure(layout=dict(height=300)), "Not a decision.")
+    >>> out.layout.height, out.layout.annotations[-1].text
+    (344, '<i>Not a decision.</i>')
+    """
+    import plotly.graph_objects as go  # plotly is imported when a figure is made
+
+    out = go.Figure(fig)
+    h = int(out.layout.height or DEFAULT_HEIGHT)
+    b = int(out.layout.margin.b if out.layout.margin.b is not None else 40)
+    legend_below = out.layout.showlegend is not False and out.layout.legend.y is not None and out.layout.legend.y < 0
+    below = b + (34 if legend_below else 0)
+    out.update_layout(height=h + 44 + below - b, margin=dict(b=below + 44))
+    text = "<br>".join(html.escape(line, quote=False) for line in textwrap.wrap(caption, wrap))
+    out.add_annotation(text=f"<i>{text}</i>", xref="paper", yref="paper", x=0.0, y=0.0, yshift=-below - 4,
+                       showarrow=False, xanchor="left", yanchor="top", font=dict(size=8, color="#444444"),
+                       align="left")
+    return out
+
+
 _SVG_PLOT_UID = re.compile(rb'id="defs-([0-9a-f]{6})"')
 
 
@@ -144,7 +175,7 @@ def stable_svg(data: bytes) -> bytes:
 
     plotly.js names the clip paths and gradients of a plot after a random
     six-digit hex id, so two exports of the same figure differ; with the id
-    fixed (and trace ``uid`` set, as :mod:`ndtmap.plot.figures` does) the same
+    fixed (and trace ``uid`` set, as every figure of :mod:`ndtmap.plot` has) the same
     figure gives the same bytes.
 
     Examples
@@ -197,8 +228,8 @@ def write_figure(
     p = Path(path)
     ext = p.suffix.lower().lstrip(".")
     if ext == "html":
-        html = fig.to_html(full_html=True, include_plotlyjs=plotlyjs, config={"displaylogo": False, "responsive": True})
-        return atomic_write_text(p, html)
+        page = fig.to_html(full_html=True, include_plotlyjs=plotlyjs, config={"displaylogo": False, "responsive": True})
+        return atomic_write_text(p, page)
     if ext not in STATIC_FORMATS:
         raise FileFormatError(f"figure files must end in .png, .svg, .pdf or .html, got {str(p)!r}")
     return atomic_write_bytes(p, figure_bytes(fig, ext, width=width, height=height, scale=scale))

@@ -4,16 +4,19 @@
 >>> wb = open_workbench("sample_grids/plate_laminations.nc")  # doctest: +SKIP
 >>> wb                                                     # doctest: +SKIP
 
-:class:`~ndtmap.workbench.state.WorkbenchState` holds the selection and the
-results and calls the processing functions; :mod:`ndtmap.workbench.view`
-draws it with plotly ``FigureWidget`` and ipywidgets;
-:mod:`ndtmap.workbench.plots` builds the figures (pure functions, also used
-to save them).
+:class:`~ndtmap.workbench.state.WorkbenchState` holds the settings (one
+procedure) and the selection and calls the library for every number;
+:mod:`ndtmap.workbench.view_figures` hands its results to the figure builders
+of :mod:`ndtmap.plot` (the report's too), thinned for display
+(:mod:`ndtmap.workbench._display`); :mod:`ndtmap.workbench.view` shows them
+with plotly ``FigureWidget`` and ipywidgets and links the controls to the
+state.
 """
 
-from ndtmap.workbench.state import MAP_KINDS, TOOLS, DropMeasurement, WorkbenchState, default_procedure
+from ndtmap.scans import MAP_KINDS
+from ndtmap.workbench.state import TOOLS, AScanView, DropMeasurement, WorkbenchState, default_procedure
 
-__all__ = ["open_workbench", "Workbench", "WorkbenchState", "DropMeasurement", "MAP_KINDS", "TOOLS",
+__all__ = ["open_workbench", "Workbench", "WorkbenchState", "DropMeasurement", "AScanView", "MAP_KINDS", "TOOLS",
            "default_procedure"]
 
 

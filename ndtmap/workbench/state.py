@@ -1,38 +1,41 @@
-"""The workbench's state: a plain-Python object that holds the selection and calls the processing.
+"""The workbench's state: a plain-Python object that holds the settings and the selection and calls the library.
 
-:class:`WorkbenchState` knows the scan grid, the named gates, which gate and
-which kind of map are shown, the selected probe position, the tool in use,
-the measured line and the indication list. Every number it gives comes from
-the same functions as the command line: gates from
-:func:`ndtmap.gates.evaluate.evaluate_gate`, sections from :func:`ndtmap.scans.sections.b_scan`
-and :func:`~ndtmap.scans.sections.d_scan`, drop lengths from
-:func:`ndtmap.indications.sizing.drop_length`, the indication list from
-:func:`ndtmap.procedure.run_procedure` (so ``ndtmap indications --procedure``
-on the saved settings gives the same list).
+:class:`WorkbenchState` knows the scan grid, the settings (one
+:class:`~ndtmap.procedure.Procedure`: gates, detection and sizing), which
+gate and which kind of map are shown, the selected probe position, the tool
+in use and the measured line. Every number it gives comes from the same
+functions as the command line: gates from :func:`ndtmap.gates.evaluate_gate`,
+maps from :func:`ndtmap.scans.amplitude_map`, :func:`~ndtmap.scans.depth_map`,
+:func:`~ndtmap.scans.thickness_map` and :func:`~ndtmap.scans.backwall_loss_map`,
+sections from :func:`ndtmap.scans.b_scan` and :func:`~ndtmap.scans.d_scan`,
+drop lengths from :func:`ndtmap.indications.drop_length`, the indication list
+from :func:`ndtmap.procedure.run_procedure` (so ``ndtmap indications
+--procedure`` on the saved settings gives the same list). Time and depth
+are converted by the grid's :class:`~ndtmap.grid.geometry.PartConstants`.
 
 The state draws nothing and has no widgets; :mod:`ndtmap.workbench.view`
 shows it. All methods are synchronous, so a script or a test can drive it
 without a browser. Long computations accept a ``progress`` function.
 
+Settings
+    The settings are one frozen :class:`~ndtmap.procedure.Procedure`
+    (:attr:`WorkbenchState.settings`); every edit makes a new one. Gate levels
+    given in dB re the back wall are turned into %FSH once, when the state is
+    made, with the back-wall level measured on the grid; :meth:`procedure`
+    gives the settings as they are saved (such levels in dB again).
+
 Maps
     Gate results are kept in a cache keyed by the definitions of the gate and
     the gates it follows (and the detection signal), so redrawing, changing
     the kind of map or going back to an earlier gate setting does not
-    recompute. The four kinds are read from one gate result:
-
-    * ``'amplitude'``: the gate's ``amplitude_fsh`` (as
-      :func:`ndtmap.scans.maps.amplitude_map`);
-    * ``'depth'``: the event depth ``depth_mm`` (as :func:`~ndtmap.scans.maps.depth_map`);
-    * ``'thickness'``: the event depth where positive (as
-      :func:`~ndtmap.scans.maps.thickness_map` with ``method='first-echo'``; on an
-      immersion grid a gate that follows the interface gate counts from the
-      interface echo, i.e. interface to back wall);
-    * ``'backwall-loss'``: ``20 log10(nominal / max(A, 0.1 %FSH))`` with the
-      nominal level of the procedure's back-wall gate or the median over the
-      scan (as :func:`~ndtmap.scans.maps.backwall_loss_map`).
-
-    Rectified gates are evaluated on the grid cut to the time span their
-    windows can reach (see :mod:`ndtmap.workbench._compute`).
+    recompute: each map is made by the library function of its kind from the
+    cached result (``result=``), one pass over the A-scans per gate. On an
+    immersion grid the thickness under a gate that follows the interface gate
+    is measured from the interface echo (``method='interface-to-backwall'``),
+    which evaluates both gates again on the cut record. Rectified gates are
+    evaluated on the grid cut to the time span their windows can reach (see
+    :mod:`ndtmap.workbench._compute`). The indication list is cached by the
+    procedure it was listed with.
 """
 
 from __future__ import annotations
@@ -41,7 +44,7 @@ import math
 import os
 import threading
 from collections import OrderedDict
-from collections.abc import Mapping
+from collections.abc import Iterable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -63,53 +66,35 @@ from ndtmap.gates import (
     gate_window_us,
 )
 from ndtmap.grid.geometry import part_constants
-from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import ascan_in_fsh, check_grid, grid_attr, missing_ascans
-from ndtmap.indications.flags import FLAG_MEANINGS
-from ndtmap.indications.sizing import LengthResult, drop_length
-from ndtmap.procedure import Analysis, Procedure, load_procedure, procedure_to_toml, run_procedure
-from ndtmap.scans import b_scan, backwall_loss_map, d_scan
+from ndtmap.indications import LengthResult, detect_indications, drop_length
+from ndtmap.plot import GateMark, IndicationOutline, SectionGate
+from ndtmap.plot import indication_outlines as outlines_on_map
+from ndtmap.procedure import Analysis, Procedure, first_look_procedure, load_procedure, run_procedure
+from ndtmap.procedure import save_procedure as write_procedure
+from ndtmap.scans import MAP_KINDS, amplitude_map, b_scan, backwall_loss_map, d_scan, depth_map, thickness_map
 from ndtmap.signal import detected_signal
 from ndtmap.workbench import _compute as cx
 
-__all__ = [
-    "MAP_KINDS",
-    "TOOLS",
-    "WorkbenchState",
-    "AScanView",
-    "GateMark",
-    "SectionGate",
-    "DropMeasurement",
-    "default_procedure",
-]
+__all__ = ["TOOLS", "WorkbenchState", "AScanView", "DropMeasurement", "default_procedure"]
 
-MAP_KINDS = ("amplitude", "depth", "thickness", "backwall-loss")
 TOOLS = ("inspect", "measure")
 DETECT_KINDS = ("rectified", "envelope")
 #: Gate results kept in the cache (each is a few (scan, index) float maps).
 CACHE_SIZE = 24
-#: Least back-wall amplitude used in the loss ratio, %FSH (as ndtmap.scans.maps.backwall_loss_map).
-LOSS_FLOOR_FSH = 0.1
-
-
-@dataclass(frozen=True)
-class GateMark:
-    """A gate as drawn on one A-scan: window in depth, threshold and the event found there."""
-
-    name: str
-    start_depth_mm: float | None
-    end_depth_mm: float | None
-    threshold_fsh: float
-    mode: str
-    follows: str | None
-    triggered: bool
-    event_depth_mm: float | None
-    event_amplitude_fsh: float | None
+#: Indication lists kept (each with its maps).
+ANALYSIS_CACHE_SIZE = 4
+#: Fields of a gate the gate panel changes.
+GATE_FIELDS = ("start", "end", "unit", "threshold_fsh", "mode", "follows")
+_KEEP: Any = object()  # an argument left out: the setting stays as it is
+#: Settings compared with the procedure the workbench started from.
+_SETTINGS = ("detection_gate", "backwall_gate", "backwall_nominal_fsh", "backwall_loss_threshold_db", "min_area_mm2",
+             "min_positions", "detect", "edge")
 
 
 @dataclass(frozen=True)
 class AScanView:
-    """The A-scan at the selected position, with the gates drawn on it."""
+    """The A-scan at the selected position, with every gate evaluated there (depths in mm)."""
 
     scan_mm: float
     index_mm: float
@@ -120,17 +105,6 @@ class AScanView:
     detect: str
     missing: bool
     gates: tuple[GateMark, ...]
-
-
-@dataclass(frozen=True)
-class SectionGate:
-    """A gate along a section: window start and end depth (and the event) at every position of the line."""
-
-    name: str
-    position_mm: np.ndarray = field(repr=False)
-    start_depth_mm: np.ndarray = field(repr=False)
-    end_depth_mm: np.ndarray = field(repr=False)
-    event_depth_mm: np.ndarray = field(repr=False)
 
 
 @dataclass(frozen=True)
@@ -183,6 +157,13 @@ class DropMeasurement:
             f"{self.level_fsh:.1f} %FSH (peak {self.indication_peak_fsh:.1f} %FSH), gate {self.gate}"
         )
 
+    def length_ends_mm(self) -> tuple[tuple[float, float], tuple[float, float]] | None:
+        """The two ends of the length on the plan, (scan, index) mm, or None without a length."""
+        r = self.result
+        if r.start_mm is None or r.end_mm is None:
+            return None
+        return (float(r.start_mm[0]), float(r.start_mm[1])), (float(r.end_mm[0]), float(r.end_mm[1]))
+
 
 def default_procedure(grid: xr.Dataset) -> Procedure:
     """The procedure a workbench opens with when none is given.
@@ -190,21 +171,16 @@ def default_procedure(grid: xr.Dataset) -> Procedure:
     The first-look procedure (:func:`ndtmap.procedure.first_look_procedure`)
     where it can be derived; otherwise (angle beams, no back wall in the
     record) one gate over the middle 80 % of the recorded depth at
-    20 %FSH.
+    :data:`ndtmap.gates.DEFAULT_THRESHOLD_FSH`.
     """
-    from ndtmap.procedure import first_look_procedure
-
     try:
         return first_look_procedure(grid)
     except NdtmapError:
         pass
-    pc = part_constants(grid)
-    k = pc.mm_per_us * pc.cos_theta
-    d0 = (pc.time_us[0] - pc.zero_offset_us) * k
-    d1 = (pc.time_us[-1] - pc.zero_offset_us) * k
-    start = max(0.0, d0) + 0.1 * (d1 - max(0.0, d0))
-    end = d1 - 0.1 * (d1 - max(0.0, d0))
-    gate = Gate("gate A", round(start, 2), round(end, 2), threshold_fsh=DEFAULT_THRESHOLD_FSH)
+    d0, d1 = part_constants(grid).record_depth_mm()
+    top = max(0.0, d0)
+    gate = Gate("gate A", round(top + 0.1 * (d1 - top), 2), round(d1 - 0.1 * (d1 - top), 2),
+                threshold_fsh=DEFAULT_THRESHOLD_FSH)
     return Procedure(
         name="workbench default (one gate)",
         description=(f"One gate over the middle 80 % of the recorded depth at {DEFAULT_THRESHOLD_FSH:g} %FSH, set by "
@@ -216,6 +192,18 @@ def default_procedure(grid: xr.Dataset) -> Procedure:
 
 def _nearest(coord: np.ndarray, value: float) -> int:
     return int(np.argmin(np.abs(coord - value)))
+
+
+def _as_procedure(procedure: Any, grid: xr.Dataset) -> Procedure:
+    if procedure is None:
+        return default_procedure(grid)
+    if isinstance(procedure, Procedure):
+        return procedure
+    if isinstance(procedure, str | os.PathLike):
+        return load_procedure(procedure)
+    raise ParameterTypeError(
+        f"`procedure` must be a Procedure, the path of a procedure file or None, got {type(procedure).__name__}"
+    )
 
 
 class WorkbenchState:
@@ -250,20 +238,11 @@ class WorkbenchState:
     def __init__(self, grid: xr.Dataset, *, procedure: Procedure | str | os.PathLike[str] | None = None,
                  source: str | None = None) -> None:
         grid = check_grid(grid)
-        if procedure is None:
-            proc = default_procedure(grid)
-        elif isinstance(procedure, Procedure):
-            proc = procedure
-        elif isinstance(procedure, str | os.PathLike):
-            proc = load_procedure(procedure)
-        else:
-            raise ParameterTypeError(
-                f"`procedure` must be a Procedure, the path of a procedure file or None, got {type(procedure).__name__}"
-            )
+        proc = _as_procedure(procedure, grid)
         self.source = source
         self._raw_grid = grid
         if proc.velocity_m_s is not None or proc.zero_offset_us is not None:
-            from ndtmap.grid.calibration import calibrate
+            from ndtmap.grid.calibration import calibrate  # only for a procedure that calibrates
 
             grid = calibrate(grid, velocity_m_s=proc.velocity_m_s, zero_offset_us=proc.zero_offset_us,
                              note=f"procedure {proc.name}")
@@ -272,23 +251,18 @@ class WorkbenchState:
         self._scan = np.asarray(grid["scan"].values, dtype=np.float64)
         self._index = np.asarray(grid["index"].values, dtype=np.float64)
         self._base = proc
+        self._settings = proc
         self.notes: list[str] = []
-        self._gates: OrderedDict[str, Gate] = OrderedDict((g.name, g) for g in proc.gates)
-        self.detect = proc.detect
-        self.detection_gate = proc.detection_gate
-        self.backwall_gate = proc.backwall_gate
-        self.backwall_nominal_fsh = proc.backwall_nominal_fsh
-        self.loss_threshold_db = proc.backwall_loss_threshold_db
-        self.min_area_mm2 = proc.min_area_mm2
-        self.min_positions = proc.min_positions
-        self.edge = proc.edge
+        self._lock = threading.RLock()
+        self._cache: OrderedDict[Any, Any] = OrderedDict()
+        self._missing: xr.DataArray | None | bool = False  # False: not computed yet
+        self._analyses: OrderedDict[Procedure, tuple[Analysis, list[IndicationOutline] | None]] = OrderedDict()
+        self._sections: dict[Any, Any] = {}
+        for g in proc.gates:  # every window must fit the record
+            cx.chain_bounds_us(self.grid, gate_chain(proc.gates, g.name), "rectified")
         if any(g.needs_reference for g in proc.gates):  # levels in dB re the back wall: measure it once
-            bw = self._gates[proc.backwall_gate]
-            loss = backwall_loss_map(self.grid, bw, nominal_fsh=proc.backwall_nominal_fsh, detect=proc.detect)
-            nominal = float(loss.attrs["nominal_fsh"])
-            self._gates = OrderedDict((n, g.with_reference_fsh(nominal)) for n, g in self._gates.items())
-        for g in self._gates.values():  # every window must fit the record
-            cx.chain_bounds_us(self.grid, gate_chain(self._gates, g.name), "rectified")
+            nominal = self._backwall_level_fsh()
+            self._settings = replace(proc, gates=tuple(g.with_reference_fsh(nominal) for g in proc.gates))
         self.active_gate = proc.detection_gate
         self.map_kind = "amplitude"
         self.tool = "inspect"
@@ -301,35 +275,44 @@ class WorkbenchState:
         self._line_gate: str | None = None
         self._measurement: tuple[Any, DropMeasurement] | None = None
         self.selected_indication: int | None = None
-        self._cache: OrderedDict[Any, xr.Dataset] = OrderedDict()
-        self._lock = threading.RLock()
-        self._missing: xr.DataArray | None | bool = False  # False: not computed yet
-        self._analysis: tuple[str, Analysis] | None = None
-        self._sections: dict[Any, Any] = {}
+
+    def _backwall_level_fsh(self) -> float:
+        """The nominal back-wall level of the procedure, %FSH (given, or the median over the scan)."""
+        proc = self._settings
+        bw = proc.gate(proc.backwall_gate)
+        loss = backwall_loss_map(self.grid, bw, nominal_fsh=proc.backwall_nominal_fsh, detect=proc.detect,
+                                 result=self.gate_result(bw.name))
+        return float(loss.attrs["nominal_fsh"])
 
     # ------------------------------------------------------------------ description
     @property
     def caution(self) -> str:
         """The caution every result of ndtmap carries."""
-        from ndtmap import CAUTION
+        from ndtmap import CAUTION  # the package top imports the workbench's neighbours, not the reverse
 
         return CAUTION
 
     @property
+    def settings(self) -> Procedure:
+        """The current settings: gates (levels in %FSH, as evaluated), detection and sizing."""
+        return self._settings
+
+    @property
     def gates(self) -> tuple[Gate, ...]:
         """All gates, in order."""
-        return tuple(self._gates.values())
+        return self._settings.gates
 
     @property
     def gate_names(self) -> tuple[str, ...]:
-        return tuple(self._gates)
+        return tuple(g.name for g in self._settings.gates)
 
     def gate(self, name: str | None = None) -> Gate:
         """The gate called `name` (default: the active gate)."""
         name = self.active_gate if name is None else name
-        if name not in self._gates:
-            raise GateError(f"no gate named {name!r}; gates: {list(self._gates)}")
-        return self._gates[name]
+        for g in self._settings.gates:
+            if g.name == name:
+                return g
+        raise GateError(f"no gate named {name!r}; gates: {list(self.gate_names)}")
 
     @property
     def scan_mm(self) -> np.ndarray:
@@ -348,13 +331,22 @@ class WorkbenchState:
                 f"{grid_attr(self.grid, 'probe_frequency_mhz'):g} MHz, {grid_attr(self.grid, 'velocity_m_s'):g} m/s")
 
     # ------------------------------------------------------------------ gates
-    def _check_gates(self, table: Mapping[str, Gate], changed: str | None = None) -> None:
-        names = [changed] if changed is not None else []
-        names += [g.name for g in table.values() if g.name != changed]
-        for name in names:
+    def _check_gates(self, gates: Iterable[Gate], changed: str) -> None:
+        """Raise GateError unless every chain through the gate `changed` resolves and fits the record."""
+        table = {g.name: g for g in gates}
+        for name in [changed] + [n for n in table if n != changed]:
             chain = gate_chain(table, name)
-            if changed is None or any(g.name == changed for g in chain):
+            if any(g.name == changed for g in chain):
                 cx.chain_bounds_us(self.grid, chain, "rectified")
+
+    def _with_gate(self, new: Gate) -> Gate:
+        gates = [new if g.name == new.name else g for g in self._settings.gates]
+        if new.name not in self.gate_names:
+            gates.append(new)
+        with self._lock:
+            self._check_gates(gates, new.name)
+            self._settings = self._settings.with_gate(new)
+        return new
 
     def set_gate(self, gate: Gate | str, **changes: Any) -> Gate:
         """Replace a gate, or change fields of the gate called `gate`.
@@ -365,7 +357,7 @@ class WorkbenchState:
             A whole new definition (replacing the gate of the same name), or
             the name of the gate to change.
         **changes
-            Fields of :class:`~ndtmap.gates.evaluate.Gate` to change: ``start``,
+            Fields of :class:`~ndtmap.gates.Gate` to change: ``start``,
             ``end``, ``unit``, ``threshold_fsh``, ``mode``, ``follows``.
 
         Returns
@@ -383,44 +375,39 @@ class WorkbenchState:
         if isinstance(gate, Gate):
             if changes:
                 raise ParameterError("give either a whole Gate or the name of a gate with changes, not both")
-            new = gate
-            if new.name not in self._gates:
-                raise GateError(f"no gate named {new.name!r}; use add_gate to add one (gates: {list(self._gates)})")
-        elif isinstance(gate, str):
-            old = self.gate(gate)
-            unknown = sorted(set(changes) - {"start", "end", "unit", "threshold_fsh", "mode", "follows"})
-            if unknown:
-                raise ParameterError(f"unknown gate field(s) {unknown}; change start, end, unit, threshold_fsh, "
-                                     "mode or follows")
-            if "follows" in changes and changes["follows"] in ("", "none", "None"):
-                changes["follows"] = None
-            new = replace(old, **changes)
-        else:
+            if gate.name not in self.gate_names:
+                raise GateError(f"no gate named {gate.name!r}; use add_gate to add one "
+                                f"(gates: {list(self.gate_names)})")
+            return self._with_gate(gate)
+        if not isinstance(gate, str):
             raise ParameterTypeError(f"`gate` must be a Gate or a gate name, got {type(gate).__name__}")
-        with self._lock:
-            table = OrderedDict(self._gates)
-            table[new.name] = new
-            self._check_gates(table, new.name)
-            self._gates = table
-        return new
+        old = self.gate(gate)
+        unknown = sorted(set(changes) - set(GATE_FIELDS))
+        if unknown:
+            raise ParameterError(f"unknown gate field(s) {unknown}; change {', '.join(GATE_FIELDS)}")
+        if "follows" in changes and changes["follows"] in ("", "none", "None"):
+            changes["follows"] = None
+        return self._with_gate(replace(old, **changes))
 
     def convert_unit(self, name: str, unit: str) -> Gate:
         """Give the gate called `name` in `unit` ('mm' depth or 'us' time), the same window.
 
-        The new start and end are rounded to 1e-4 of the unit, far less
-        than a sample.
+        The time <-> depth mapping is the grid's
+        :class:`~ndtmap.grid.geometry.PartConstants` (a following gate's window
+        counts from the followed event, without the zero offset). The new
+        start and end are rounded to 1e-4 of the unit, far less than a sample.
         """
         one_of("unit", unit, GATE_UNITS)
         g = self.gate(name)
         if g.unit == unit:
             return g
-        per_mm = 1.0 / (self._pc.mm_per_us * self._pc.cos_theta)  # us of pulse-echo time per mm of depth
-        offset = self._pc.zero_offset_us if g.follows is None else 0.0
+        pc = self._pc
+        ends = np.array([g.start, g.end], dtype=np.float64)
         if unit == "us":
-            start, end = g.start * per_mm + offset, g.end * per_mm + offset
+            new = pc.time_us_at_depth(ends) if g.follows is None else ends / pc.depth_per_us()
         else:
-            start, end = (g.start - offset) / per_mm, (g.end - offset) / per_mm
-        return self.set_gate(name, start=round(start, 4), end=round(end, 4), unit=unit)
+            new = pc.depth_mm(ends) if g.follows is None else pc.depth_mm(ends, from_us=0.0)
+        return self.set_gate(name, start=round(float(new[0]), 4), end=round(float(new[1]), 4), unit=unit)
 
     def add_gate(self, gate: Gate | str) -> Gate:
         """Add a gate: a whole definition, or a name (a copy of the active gate's window under that name).
@@ -434,18 +421,12 @@ class WorkbenchState:
             name = gate.strip()
             if not name:
                 raise GateError("a new gate needs a name; type one, e.g. 'backwall 2'")
-            src = self.gate()
-            gate = replace(src, name=name)
+            gate = replace(self.gate(), name=name)
         elif not isinstance(gate, Gate):
             raise ParameterTypeError(f"`gate` must be a Gate or a name, got {type(gate).__name__}")
-        if gate.name in self._gates:
+        if gate.name in self.gate_names:
             raise GateError(f"a gate named {gate.name!r} exists already; choose another name")
-        with self._lock:
-            table = OrderedDict(self._gates)
-            table[gate.name] = gate
-            self._check_gates(table, gate.name)
-            self._gates = table
-        return gate
+        return self._with_gate(gate)
 
     def remove_gate(self, name: str) -> None:
         """Remove the gate called `name`.
@@ -453,28 +434,34 @@ class WorkbenchState:
         Raises
         ------
         GateError
-            For the last gate, a gate that another follows, or the gate the
-            indication list searches (choose another first).
+            For the last gate, a gate that another follows, the gate the
+            indication list searches (choose another first) or the back-wall
+            gate while a level is in dB re the back wall.
         """
         self.gate(name)
-        if len(self._gates) == 1:
+        proc = self._settings
+        if len(proc.gates) == 1:
             raise GateError(f"gate {name!r} is the only gate; add another before removing it")
-        followers = [g.name for g in self._gates.values() if g.follows == name]
+        followers = [g.name for g in proc.gates if g.follows == name]
         if followers:
             raise GateError(f"gate {name!r} is followed by {followers}; remove or detach those first")
-        if name == self.detection_gate:
+        if name == proc.detection_gate:
             raise GateError(f"gate {name!r} is the gate the indication list searches; choose another "
                             "detection gate first")
+        changes: dict[str, Any] = {"gates": tuple(g for g in proc.gates if g.name != name)}
+        if proc.backwall_gate == name:
+            self._check_no_backwall_levels(name)
+            changes.update(backwall_gate=None, backwall_nominal_fsh=None, backwall_loss_threshold_db=None)
         with self._lock:
-            table = OrderedDict(self._gates)
-            del table[name]
-            self._gates = table
-            if self.backwall_gate == name:
-                self.backwall_gate = None
-                self.backwall_nominal_fsh = None
-                self.loss_threshold_db = None
+            self._settings = replace(proc, **changes)
             if self.active_gate == name:
-                self.active_gate = self.detection_gate
+                self.active_gate = proc.detection_gate
+
+    def _check_no_backwall_levels(self, name: str) -> None:
+        levels = [g.name for g in self._settings.gates if g.reference == "backwall"]
+        if levels:
+            raise GateError(f"the level of gate(s) {levels} is in dB re the back wall; gate {name!r} measures it, so "
+                            "it stays the back-wall gate")
 
     def set_active_gate(self, name: str) -> None:
         """Show and edit the gate called `name`."""
@@ -490,44 +477,84 @@ class WorkbenchState:
         detect = one_of("detect", detect, DETECT_KINDS)
         if detect == "envelope" and self.grid["ascan"].attrs.get("signal", "rf") != "rf":
             raise ParameterError("`detect`='envelope' needs RF A-scans but the grid is rectified; use 'rectified'")
-        self.detect = detect
+        self._settings = replace(self._settings, detect=detect)
 
     def set_tool(self, tool: str) -> None:
         """'inspect' (a click selects a position) or 'measure' (clicks pick the ends of a line)."""
         self.tool = one_of("tool", tool, TOOLS)
         self.measure_points = []
 
+    # ------------------------------------------------------------------ detection settings
+    def set_detection(self, *, detection_gate: Any = _KEEP, backwall_gate: Any = _KEEP, loss_threshold_db: Any = _KEEP,
+                      min_area_mm2: Any = _KEEP) -> Procedure:
+        """Change the settings of the indication list at once (arguments left out stay as they are).
+
+        Parameters
+        ----------
+        detection_gate : str, optional
+            The gate searched for indications.
+        backwall_gate : str or None, optional
+            The back-wall gate (loss indications, DGS reference, thickness);
+            None (or 'none') for none.
+        loss_threshold_db : float or None, optional
+            List back-wall-loss indications where the back wall drops at
+            least this much (None or 0: off; left out where there is no
+            back-wall gate).
+        min_area_mm2 : float, optional
+            Smallest detected area of an indication, mm^2.
+
+        Returns
+        -------
+        Procedure
+            The new settings.
+
+        Raises
+        ------
+        GateError, ParameterError, ProcedureError
+            The settings are left as they were.
+        """
+        proc = self._settings
+        changes: dict[str, Any] = {}
+        if detection_gate is not _KEEP:
+            self.gate(detection_gate)
+            changes["detection_gate"] = detection_gate
+        bw = proc.backwall_gate if backwall_gate is _KEEP else (None if backwall_gate in (None, "", "none") else
+                                                                 backwall_gate)
+        if bw is None and proc.backwall_gate is not None:
+            self._check_no_backwall_levels(proc.backwall_gate)
+        if bw is not None:
+            self.gate(bw)
+        if bw == changes.get("detection_gate", proc.detection_gate):
+            raise GateError(f"gate {bw!r} is both the gate the indication list searches and the back-wall gate; "
+                            "choose another for one of them")
+        changes["backwall_gate"] = bw
+        if bw != proc.backwall_gate:
+            changes["backwall_nominal_fsh"] = None
+        loss = proc.backwall_loss_threshold_db if loss_threshold_db is _KEEP else loss_threshold_db
+        changes["backwall_loss_threshold_db"] = (None if bw is None or not loss else
+                                                 positive_float("loss_threshold_db", loss))
+        if min_area_mm2 is not _KEEP:
+            changes["min_area_mm2"] = nonnegative_float("min_area_mm2", min_area_mm2)
+        self._settings = replace(proc, **changes)
+        return self._settings
+
     def set_detection_gate(self, name: str) -> None:
         """Search the gate called `name` for indications."""
-        self.gate(name)
-        if name == self.backwall_gate:
-            raise GateError(f"gate {name!r} is the back-wall gate; the indication list searches a flaw gate")
-        self.detection_gate = name
+        self.set_detection(detection_gate=name)
 
     def set_backwall_gate(self, name: str | None) -> None:
         """The back-wall gate (loss indications, DGS reference, thickness), or None."""
-        if name in (None, "", "none"):
-            if any(g.reference == "backwall" for g in self._gates.values()):
-                raise GateError("a gate's level is in dB re the back wall; it needs a back-wall gate")
-            self.backwall_gate = None
-            return
-        self.gate(name)
-        if name == self.detection_gate:
-            raise GateError(f"gate {name!r} is the gate the indication list searches; choose another")
-        if name != self.backwall_gate:
-            self.backwall_nominal_fsh = None
-        self.backwall_gate = name
+        self.set_detection(backwall_gate=name)
 
     def set_loss_threshold_db(self, value: float | None) -> None:
         """Report back-wall-loss indications where the back wall drops at least this much (None or 0: off)."""
-        if value is None or value == 0:
-            self.loss_threshold_db = None
-            return
-        self.loss_threshold_db = positive_float("loss_threshold_db", value)
+        if value and self._settings.backwall_gate is None:
+            raise GateError("a back-wall-loss level needs a back-wall gate; choose one first")
+        self.set_detection(loss_threshold_db=value or None)
 
     def set_min_area_mm2(self, value: float) -> None:
         """Smallest detected area of an indication, mm^2."""
-        self.min_area_mm2 = nonnegative_float("min_area_mm2", value)
+        self.set_detection(min_area_mm2=value)
 
     # ------------------------------------------------------------------ maps
     def missing_mask(self, progress: cx.Progress | None = None) -> xr.DataArray | None:
@@ -539,80 +566,81 @@ class WorkbenchState:
 
     def gate_key(self, name: str | None = None) -> tuple[Any, ...]:
         """Cache key of a gate: its definition, those of the gates it follows, the detection signal."""
-        return cx.chain_key(gate_chain(self._gates, self.gate(name).name), self.detect)
+        return cx.chain_key(gate_chain(self.gates, self.gate(name).name), self._settings.detect)
 
     def has_gate_result(self, name: str | None = None) -> bool:
         """True when the result of the gate is in the cache (no computation needed)."""
         return self.gate_key(name) in self._cache
 
-    def gate_result(self, name: str | None = None, *, progress: cx.Progress | None = None) -> xr.Dataset:
-        """The gate's result on every A-scan (:func:`ndtmap.gates.evaluate.evaluate_gate`), in memory, cached."""
-        gate = self.gate(name)
-        chain = gate_chain(self._gates, gate.name)
-        key = cx.chain_key(chain, self.detect)
+    def _cached(self, key: Any, make: Any) -> Any:
         with self._lock:
             if key in self._cache:
                 self._cache.move_to_end(key)
                 return self._cache[key]
-        missing = self.missing_mask(progress) if self.detect == "rectified" else None
-        work = cx.crop_to_chain(self.grid, chain, self.detect, missing)
-        work = cx.in_slabs(work)
-        res = evaluate_gate(work, gate, others=chain[1:], detect=self.detect)
-        res = cx.computed(res, progress, f"gate {gate.name}")
+        value = make()
         with self._lock:
-            self._cache[key] = res
+            self._cache[key] = value
             while len(self._cache) > CACHE_SIZE:
                 self._cache.popitem(last=False)
-        return res
+        return value
+
+    def _cut_grid(self, chain: list[Gate], detect: str, progress: cx.Progress | None) -> xr.Dataset:
+        missing = self.missing_mask(progress) if detect == "rectified" else None
+        return cx.in_slabs(cx.crop_to_chain(self.grid, chain, detect, missing))
+
+    def gate_result(self, name: str | None = None, *, progress: cx.Progress | None = None) -> xr.Dataset:
+        """The gate's result on every A-scan (:func:`ndtmap.gates.evaluate_gate`), in memory, cached."""
+        gate = self.gate(name)
+        chain = gate_chain(self.gates, gate.name)
+        detect = self._settings.detect
+
+        def make() -> xr.Dataset:
+            res = evaluate_gate(self._cut_grid(chain, detect, progress), gate, others=chain[1:], detect=detect)
+            return cx.computed(res, progress, f"gate {gate.name}")
+
+        return self._cached(cx.chain_key(chain, detect), make)
+
+    def _thickness(self, g: Gate, res: xr.Dataset, progress: cx.Progress | None) -> xr.DataArray:
+        """Wall thickness under gate `g`: from pulse entry, or from the interface echo on an immersion grid."""
+        detect = self._settings.detect
+        if res.attrs.get("depth_reference", "entry") == "entry":
+            return thickness_map(self.grid, g, detect=detect, result=res)
+        chain = gate_chain(self.gates, g.name)  # g follows the interface gate, chain[-1]
+
+        def make() -> xr.DataArray:
+            out = thickness_map(self._cut_grid(chain, detect, progress), g, reference_gate=chain[-1],
+                                method="interface-to-backwall", others=chain[1:-1], detect=detect)
+            return cx.computed(out, progress, f"thickness under gate {g.name}")
+
+        return self._cached(("thickness", cx.chain_key(chain, detect)), make)
 
     def map(self, kind: str | None = None, gate: str | None = None, *,
             progress: cx.Progress | None = None) -> xr.DataArray:
         """The map of `kind` (default: the shown kind) for `gate` (default: the active gate).
 
+        The map of the library function of its kind (:mod:`ndtmap.scans.maps`),
+        made from the gate's cached result: what ``ndtmap map --kind`` computes.
+        The back-wall loss is taken re the procedure's nominal back-wall level
+        for the back-wall gate, else re the median over the scan.
+
         Returns
         -------
         xarray.DataArray (scan, index)
-            With ``units``, ``long_name``, the grid and gate attributes and a
-            provenance step ``workbench_map``.
+            With ``units``, ``long_name``, the grid and gate attributes and
+            the provenance of the library function.
         """
         kind = one_of("kind", self.map_kind if kind is None else kind, MAP_KINDS)
         g = self.gate(gate)
         res = self.gate_result(g.name, progress=progress)
-        attrs = dict(res.attrs)
-        extra: dict[str, Any] = {}
+        proc = self._settings
         if kind == "amplitude":
-            out, units, long_name, name = res["amplitude_fsh"], "%FSH", f"gate {g.name} peak amplitude", "amplitude_fsh"
-        elif kind == "depth":
-            out, units, long_name, name = res["depth_mm"], "mm", f"gate {g.name} event depth", "depth_mm"
-        elif kind == "thickness":
-            d = res["depth_mm"]
-            out = d.where(d > 0)
-            method = "interface-to-backwall" if attrs.get("depth_reference", "entry") != "entry" else "first-echo"
-            units, long_name, name = "mm", f"wall thickness ({method}), gate {g.name}", "thickness_mm"
-            extra["thickness_method"] = method
-        else:
-            amp = res["amplitude_fsh"]
-            nominal = self.backwall_nominal_fsh if g.name == self.backwall_gate else None
-            if nominal is None:
-                nominal = float(np.nanmedian(np.asarray(amp.values, dtype=np.float64)))
-                source = "median over the scan"
-            else:
-                source = "given"
-            if not (math.isfinite(nominal) and nominal > 0):
-                raise ParameterError(f"no positive nominal back-wall level in gate {g.name!r} (median {nominal!r} "
-                                     "%FSH); move the gate onto the back-wall echo")
-            out = 20.0 * np.log10(nominal / np.maximum(amp, LOSS_FLOOR_FSH))
-            out = out.where(amp.notnull())
-            units, long_name, name = "dB", f"back-wall loss, gate {g.name}", "backwall_loss_db"
-            extra.update(nominal_fsh=nominal, nominal_source=source, floor_fsh=LOSS_FLOOR_FSH)
-        out = out.copy(deep=False).rename(name)
-        attrs.update(extra)
-        attrs["units"] = units
-        attrs["long_name"] = long_name
-        attrs["map_kind"] = kind
-        out.attrs = attrs
-        return with_step(out, "workbench_map", {"kind": kind, "gate": g.to_dict(), "detect": self.detect},
-                         source=res)
+            return amplitude_map(self.grid, g, detect=proc.detect, result=res)
+        if kind == "depth":
+            return depth_map(self.grid, g, detect=proc.detect, result=res)
+        if kind == "thickness":
+            return self._thickness(g, res, progress)
+        nominal = proc.backwall_nominal_fsh if g.name == proc.backwall_gate else None
+        return backwall_loss_map(self.grid, g, nominal_fsh=nominal, detect=proc.detect, result=res)
 
     # ------------------------------------------------------------------ selection, A-scan, sections
     def select_point(self, scan_mm: float, index_mm: float) -> tuple[float, float]:
@@ -637,76 +665,70 @@ class WorkbenchState:
         """Array indices (scan, index) of the selected position."""
         return _nearest(self._scan, self.point[0]), _nearest(self._index, self.point[1])
 
-    def _depth_of_time(self, t_us: Any) -> Any:
-        return self._pc.mm_per_us * (np.asarray(t_us, dtype=np.float64) - self._pc.zero_offset_us) * \
-            self._pc.cos_theta
+    def _depth_mm(self, time_us: Any) -> np.ndarray:
+        """Depth (mm) of pulse-echo times (us), by the grid's PartConstants."""
+        return np.asarray(self._pc.depth_mm(np.asarray(time_us, dtype=np.float64)), dtype=np.float64)
+
+    def _window_depths(self, sub: xr.Dataset, g: Gate, r: xr.Dataset, squeeze: dict[str, int],
+                       n: int) -> tuple[np.ndarray, np.ndarray]:
+        """Depths of the gate window at the positions of `sub` (fixed, or from the result of a following gate)."""
+        if g.follows is None:
+            a, b = gate_window_us(sub, g)
+            return self._depth_mm(np.full(n, a)), self._depth_mm(np.full(n, b))
+        return self._depth_mm(r["window_start_us"].isel(squeeze).values), \
+            self._depth_mm(r["window_end_us"].isel(squeeze).values)
 
     def ascan(self) -> AScanView:
         """The A-scan at the selected position with every gate (window, threshold, event) evaluated there."""
         i, j = self.point_indices()
+        detect = self._settings.detect
         sub = self.grid.isel(scan=[i], index=[j])
-        sig = np.asarray(cx.computed(detected_signal(sub, self.detect), None, "").values[0, 0], dtype=np.float64)
+        sig = np.asarray(cx.computed(detected_signal(sub, detect), None, "").values[0, 0], dtype=np.float64)
         rf = None
         if self.grid["ascan"].attrs.get("signal", "rf") == "rf":
             rf = np.asarray(cx.computed(ascan_in_fsh(sub), None, "").values[0, 0], dtype=np.float64)
         missing = bool(cx.computed(missing_ascans(sub), None, "").values[0, 0])
-        results = evaluate_gates(sub, list(self._gates.values()), detect=self.detect)
+        results = evaluate_gates(sub, list(self.gates), detect=detect)
         marks = []
-        for g in self._gates.values():
+        for g in self.gates:
             r = cx.computed(results[g.name], None, "")
-            if g.follows is None:
-                a, b = gate_window_us(sub, g)
-                start, end = float(self._depth_of_time(a)), float(self._depth_of_time(b))
-            else:
-                ws = float(r["window_start_us"].values[0, 0])
-                we = float(r["window_end_us"].values[0, 0])
-                start = float(self._depth_of_time(ws)) if math.isfinite(ws) else None
-                end = float(self._depth_of_time(we)) if math.isfinite(we) else None
+            start, end = (float(v[0]) for v in self._window_depths(sub, g, r, {"scan": 0}, 1))
             trig = bool(r["triggered"].values[0, 0])
             t_ev = float(r["time_us"].values[0, 0])
             amp = float(r["amplitude_fsh"].values[0, 0])
             marks.append(GateMark(
-                name=g.name, start_depth_mm=start, end_depth_mm=end, threshold_fsh=g.threshold_fsh, mode=g.mode,
-                follows=g.follows, triggered=trig,
-                event_depth_mm=float(self._depth_of_time(t_ev)) if trig and math.isfinite(t_ev) else None,
+                gate=g, start_at=start if math.isfinite(start) else None, end_at=end if math.isfinite(end) else None,
+                triggered=trig, event_at=float(self._depth_mm(t_ev)) if trig and math.isfinite(t_ev) else None,
                 event_amplitude_fsh=amp if math.isfinite(amp) else None,
             ))
         return AScanView(
             scan_mm=self.point[0], index_mm=self.point[1], time_us=self._pc.time_us.copy(),
-            depth_mm=np.asarray(self._depth_of_time(self._pc.time_us)), signal_fsh=sig, rf_fsh=rf,
-            detect=self.detect, missing=missing, gates=tuple(marks),
+            depth_mm=self._depth_mm(self._pc.time_us), signal_fsh=sig, rf_fsh=rf, detect=detect, missing=missing,
+            gates=tuple(marks),
         )
 
     def _section(self, along: str) -> tuple[xr.DataArray, tuple[SectionGate, ...]]:
         i, j = self.point_indices()
-        key = (along, i if along == "index" else j, self.detect, self.gate_names, tuple(self._gates.values()))
+        detect = self._settings.detect
+        key = (along, i if along == "index" else j, detect, self.gates)
         with self._lock:
             if key in self._sections:
                 return self._sections[key]
         if along == "scan":  # B-scan: the line along scan at the selected index position
             sub = self.grid.isel(index=[j])
-            sec = b_scan(sub, float(self._index[j]), detect=self.detect)
-            pos = self._scan
+            sec = b_scan(sub, float(self._index[j]), detect=detect)
+            pos, squeeze = self._scan, {"index": 0}
         else:  # D-scan: the line along index at the selected scan position
             sub = self.grid.isel(scan=[i])
-            sec = d_scan(sub, float(self._scan[i]), detect=self.detect)
-            pos = self._index
+            sec = d_scan(sub, float(self._scan[i]), detect=detect)
+            pos, squeeze = self._index, {"scan": 0}
         sec = cx.computed(sec, None, "")
-        results = evaluate_gates(sub, list(self._gates.values()), detect=self.detect)
+        results = evaluate_gates(sub, list(self.gates), detect=detect)
         lines = []
-        for g in self._gates.values():
+        for g in self.gates:
             r = cx.computed(results[g.name], None, "")
-            squeeze = {"index": 0} if along == "scan" else {"scan": 0}
-            if g.follows is None:
-                a, b = gate_window_us(sub, g)
-                ws = np.full(pos.size, a)
-                we = np.full(pos.size, b)
-            else:
-                ws = r["window_start_us"].isel(squeeze).values
-                we = r["window_end_us"].isel(squeeze).values
-            ev = r["time_us"].isel(squeeze).values
-            lines.append(SectionGate(g.name, pos.copy(), self._depth_of_time(ws), self._depth_of_time(we),
-                                     self._depth_of_time(ev)))
+            ws, we = self._window_depths(sub, g, r, squeeze, pos.size)
+            lines.append(SectionGate(g.name, pos.copy(), ws, we, self._depth_mm(r["time_us"].isel(squeeze).values)))
         out = (sec, tuple(lines))
         with self._lock:
             if len(self._sections) > 16:
@@ -715,11 +737,11 @@ class WorkbenchState:
         return out
 
     def b_scan(self) -> xr.DataArray:
-        """B-scan (scan, time) through the selected position (:func:`ndtmap.scans.sections.b_scan`, nearest line)."""
+        """B-scan (scan, time) through the selected position (:func:`ndtmap.scans.b_scan`, nearest line)."""
         return self._section("scan")[0]
 
     def d_scan(self) -> xr.DataArray:
-        """D-scan (index, time) through the selected position (:func:`ndtmap.scans.sections.d_scan`, nearest line)."""
+        """D-scan (index, time) through the selected position (:func:`ndtmap.scans.d_scan`, nearest line)."""
         return self._section("index")[0]
 
     def section_gates(self, along: str) -> tuple[SectionGate, ...]:
@@ -743,9 +765,9 @@ class WorkbenchState:
         """Measure the drop length along the line `start_mm` -> `end_mm` on the amplitude map of `gate`.
 
         The line must cross an indication of that map (a region at or above
-        the gate's threshold, :func:`ndtmap.indications.detection.detect_indications`);
+        the gate's threshold, :func:`ndtmap.indications.detect_indications`);
         of those it crosses, the one with the highest amplitude on the line
-        is measured, by :func:`ndtmap.indications.sizing.drop_length` with ``line=``.
+        is measured, by :func:`ndtmap.indications.drop_length` with ``line=``.
 
         Raises
         ------
@@ -762,16 +784,15 @@ class WorkbenchState:
         self._measurement = None
         return self._measure()
 
-    def _measure(self) -> DropMeasurement:
-        from ndtmap.indications.detection import detect_indications
+    def _measure_key(self, gate: str) -> tuple[Any, ...]:
+        return (self._line, self.gate_key(gate), self.drop_db, self._settings.edge)
 
+    def _measure(self) -> DropMeasurement:
         assert self._line is not None
         p0, p1 = self._line
-        gname = self._line_gate
-        if gname is None or gname not in self._gates:
-            gname = self.active_gate
+        gname = self._line_gate if self._line_gate in self.gate_names else self.active_gate
         g = self.gate(gname)
-        key = (self._line, self.gate_key(g.name), self.drop_db, self.edge)
+        key = self._measure_key(g.name)
         if self._measurement is not None and self._measurement[0] == key:
             return self._measurement[1]
         amp = self.map("amplitude", g.name)
@@ -794,14 +815,13 @@ class WorkbenchState:
                 f"the threshold of gate {g.name!r} ({g.threshold_fsh:g} %FSH); draw it through an indication or "
                 "lower the threshold"
             )
-        res = drop_length(amp, best, drop_db=self.drop_db, line=(p0, p1), edge=self.edge)
+        res = drop_length(amp, best, drop_db=self.drop_db, line=(p0, p1), edge=self._settings.edge)
         crossings = None
         if res.start_mm is not None and res.end_mm is not None:
             crossings = (float(math.hypot(res.start_mm[0] - p0[0], res.start_mm[1] - p0[1])),
                          float(math.hypot(res.end_mm[0] - p0[0], res.end_mm[1] - p0[1])))
-        peak = float(values[best.peak_position])
         m = DropMeasurement(
-            line_mm=(p0, p1), gate=g.name, drop_db=self.drop_db, indication_peak_fsh=peak,
+            line_mm=(p0, p1), gate=g.name, drop_db=self.drop_db, indication_peak_fsh=float(values[best.peak_position]),
             indication_peak_mm=(best.scan_mm, best.index_mm),
             level_fsh=float(res.level_fsh) if res.level_fsh is not None else float("nan"), result=res,
             distance_mm=dist, profile_fsh=prof, crossings_distance_mm=crossings,
@@ -826,7 +846,7 @@ class WorkbenchState:
             return None
         key, m = self._measurement
         try:
-            current = (self._line, self.gate_key(m.gate), self.drop_db, self.edge)
+            current = self._measure_key(m.gate)
         except NdtmapError:
             return None
         return m if key == current else None
@@ -841,31 +861,24 @@ class WorkbenchState:
     def procedure(self) -> Procedure:
         """The current settings as a procedure (what :meth:`save_procedure` writes).
 
-        Raises
-        ------
-        ProcedureError
-            When the settings do not form a valid procedure.
+        Levels in dB re the back wall are saved as such (the back wall is
+        measured again on every run); a screening-rules path is made absolute.
+        Settings changed from those the workbench started with are named as
+        saved from the workbench.
         """
-        base = self._base
-        # a level in dB re the back wall is saved as such: the back wall is measured again on every run
-        gates = tuple(replace(g, threshold_fsh=None) if g.reference == "backwall" else g for g in self._gates.values())
-        kwargs: dict[str, Any] = dict(
-            gates=gates, detection_gate=self.detection_gate, backwall_gate=self.backwall_gate,
-            detect=self.detect, min_area_mm2=self.min_area_mm2, min_positions=self.min_positions, edge=self.edge,
-            backwall_loss_threshold_db=self.loss_threshold_db if self.backwall_gate else None,
-            backwall_nominal_fsh=self.backwall_nominal_fsh if self.backwall_gate else None,
-        )
+        base, cur = self._base, self._settings
+        gates = tuple(replace(g, threshold_fsh=None) if g.reference == "backwall" else g for g in cur.gates)
         rules = base.rules_path()
-        kwargs["rules"] = str(rules.resolve()) if rules is not None else None
-        unchanged = all(getattr(base, k) == v for k, v in kwargs.items() if k != "rules")
-        kwargs["first_look"] = base.first_look and unchanged
+        changes: dict[str, Any] = dict(gates=gates, base_dir=None, rules=str(rules.resolve()) if rules else None)
+        unchanged = gates == base.gates and all(getattr(cur, k) == getattr(base, k) for k in _SETTINGS)
+        changes["first_look"] = base.first_look and unchanged
         if not unchanged:
-            kwargs["name"] = base.name if base.name.endswith("(workbench)") else f"{base.name} (workbench)"
-            kwargs["description"] = (
+            changes["name"] = base.name if base.name.endswith("(workbench)") else f"{base.name} (workbench)"
+            changes["description"] = (
                 "Settings saved from the ndtmap workbench" + (f", starting from: {base.description}"
                                                              if base.description else ".")
             )
-        return replace(base, base_dir=None, **kwargs)
+        return replace(cur, **changes)
 
     def save_procedure(self, path: str | os.PathLike[str]) -> Path:
         """Write the current settings as a procedure file (TOML) that ``ndtmap indications --procedure`` replays.
@@ -873,8 +886,6 @@ class WorkbenchState:
         A screening-rules path is written relative to the new file's folder
         when possible.
         """
-        from ndtmap.procedure import save_procedure
-
         p = Path(path)
         if p.suffix.lower() != ".toml":
             raise ParameterError(f"`path` of a procedure file must end in .toml, got {str(p)!r}")
@@ -886,15 +897,21 @@ class WorkbenchState:
                 proc = replace(proc, rules=os.path.relpath(proc.rules, p.parent.resolve()))
             except ValueError:  # another drive
                 pass
-        return save_procedure(proc, p)
+        return write_procedure(proc, p)
+
+    def _listed(self, proc: Procedure) -> tuple[Analysis, list[IndicationOutline] | None] | None:
+        with self._lock:
+            if proc in self._analyses:
+                self._analyses.move_to_end(proc)
+                return self._analyses[proc]
+        return None
 
     def analysis(self, *, progress: cx.Progress | None = None) -> Analysis:
-        """:func:`ndtmap.procedure.run_procedure` on the grid with the current settings (cached)."""
+        """:func:`ndtmap.procedure.run_procedure` on the grid with the current settings (cached by procedure)."""
         proc = self.procedure()
-        key = procedure_to_toml(proc)
-        with self._lock:
-            if self._analysis is not None and self._analysis[0] == key:
-                return self._analysis[1]
+        done = self._listed(proc)
+        if done is not None:
+            return done[0]
         if progress is not None:
             progress(None, "listing indications")
         if is_lazy(self._raw_grid):
@@ -903,20 +920,42 @@ class WorkbenchState:
         else:
             result = run_procedure(self._raw_grid, proc, source=self.source)
         with self._lock:
-            self._analysis = (key, result)
+            self._analyses[proc] = (result, None)
+            while len(self._analyses) > ANALYSIS_CACHE_SIZE:
+                self._analyses.popitem(last=False)
         return result
 
     def has_analysis(self) -> bool:
         """True when the indication list of the current settings is computed."""
         try:
-            key = procedure_to_toml(self.procedure())
+            return self._listed(self.procedure()) is not None
         except NdtmapError:
             return False
-        return self._analysis is not None and self._analysis[0] == key
 
     def indications(self, *, progress: cx.Progress | None = None) -> list[dict[str, Any]]:
-        """The sized indications of the detection gate at its threshold (as ``ndtmap indications``)."""
+        """The sized indications of the detection gate at its level (as ``ndtmap indications``)."""
         return self.analysis(progress=progress).indications
+
+    def indication_outlines(self) -> list[IndicationOutline]:
+        """Outlines of the listed indications on the maps they were sized on (empty before the list is made).
+
+        Amplitude indications on the detection gate's amplitude map, back-wall-loss
+        indications on the back-wall-loss map (:func:`ndtmap.plot.indication_outlines`).
+        """
+        proc = self.procedure()
+        done = self._listed(proc)
+        if done is None:
+            return []
+        result, outlines = done
+        if outlines is None:
+            recs = result.indications
+            outlines = outlines_on_map([r for r in recs if r["kind"] == "amplitude"], result.maps["amplitude"])
+            loss = [r for r in recs if r["kind"] != "amplitude"]
+            if loss and "backwall_loss" in result.maps:
+                outlines += outlines_on_map(loss, result.maps["backwall_loss"])
+            with self._lock:
+                self._analyses[proc] = (result, outlines)
+        return outlines
 
     def pick_indication(self, ident: int) -> dict[str, Any]:
         """Select indication `ident`: the selected position moves to its peak. Returns its record."""
@@ -935,57 +974,3 @@ class WorkbenchState:
             if rec["id"] == self.selected_indication:
                 return rec
         return None
-
-
-def indication_label(rec: Mapping[str, Any]) -> str:
-    """A one-line label of an indication record for a list."""
-    if rec["kind"] == "amplitude":
-        what = f"{rec['peak_fsh']:.1f} %FSH"
-    else:
-        loss = rec.get("backwall_loss_db")
-        what = "back wall lost" if loss is None else f"back wall -{loss:.1f} dB"
-    depth = f", {rec['depth_mm']:.1f} mm deep" if rec.get("depth_mm") is not None else ""
-    flags = f" [{', '.join(rec['flags'])}]" if rec.get("flags") else ""
-    return f"#{rec['id']} {what} at ({rec['scan_mm']:.1f}, {rec['index_mm']:.1f}) mm{depth}{flags}"
-
-
-def indication_details(rec: Mapping[str, Any]) -> list[tuple[str, str]]:
-    """(label, text) pairs of an indication's sizes, flags (with their meanings) and notes."""
-
-    def mm(v: Any, unc: Any = None) -> str:
-        if v is None:
-            return "\u2013"
-        return f"{v:.1f} \u00b1 {unc:.1f} mm" if unc is not None else f"{v:.1f} mm"
-
-    rows = [
-        ("kind", "amplitude" if rec["kind"] == "amplitude" else "back-wall loss"),
-        ("peak position", f"scan {rec['scan_mm']:.1f} mm, index {rec['index_mm']:.1f} mm"),
-    ]
-    if rec.get("peak_fsh") is not None:
-        rows.append(("peak", f"{rec['peak_fsh']:.1f} %FSH"))
-    if rec.get("backwall_loss_db") is not None:
-        rows.append(("back-wall loss", f"{rec['backwall_loss_db']:.1f} dB"))
-    if rec.get("depth_mm") is not None:
-        rows.append(("depth", f"{rec['depth_mm']:.1f} mm"))
-    method = rec.get("sizing_method") or "6 dB drop"
-    rows.append((f"length along scan ({method})", mm(rec.get("length_scan_mm"), rec.get("length_scan_uncertainty_mm"))))
-    rows.append((f"length along index ({method})",
-                 mm(rec.get("length_index_mm"), rec.get("length_index_uncertainty_mm"))))
-    if rec.get("area_mm2") is not None:
-        unc = rec.get("area_uncertainty_mm2")
-        pm = f" \u00b1 {unc:.0f}" if unc is not None else ""
-        rows.append(("area", f"{rec['area_mm2']:.0f}{pm} mm\u00b2"))
-    if rec.get("ers_mm") is not None:
-        rows.append(("DGS equivalent size", f"{rec['ers_mm']:.1f} mm ({rec.get('ers_method') or 'DGS'})"))
-    for f in rec.get("flags") or []:
-        rows.append((f"flag {f}", FLAG_MEANINGS.get(f, "")))
-    if not rec.get("flags"):
-        rows.append(("flags", "none"))
-    for n in rec.get("notes") or []:
-        rows.append(("note", n))
-    if rec.get("screening"):
-        rows.append(("screening", str(rec["screening"])))
-    return rows
-
-
-__all__ += ["indication_label", "indication_details"]

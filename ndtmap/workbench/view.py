@@ -1,12 +1,13 @@
 """The workbench's widgets: plotly ``FigureWidget`` views and ipywidgets controls linked to a state.
 
 :class:`Workbench` builds the widgets, links them to a
-:class:`~ndtmap.workbench.state.WorkbenchState` and draws what the state
-computes (figures from :mod:`ndtmap.workbench.plots`); it computes nothing
-itself. Every control is in :attr:`Workbench.controls` and every figure in
-:attr:`Workbench.figures`, so code can drive the interface as a person
-would (``wb.controls["threshold"].value = 30``,
-``wb.controls["save_procedure"].click()``, :meth:`Workbench.click_map`).
+:class:`~ndtmap.workbench.state.WorkbenchState` and copies into its views the
+figures of what the state computed (:mod:`ndtmap.workbench.view_figures`,
+drawn by :mod:`ndtmap.plot`); it computes nothing itself. Every control is
+in :attr:`Workbench.controls` and every figure in :attr:`Workbench.figures`,
+so code can drive the interface as a person would
+(``wb.controls["threshold"].value = 30``, ``wb.controls["save_procedure"].click()``,
+:meth:`Workbench.click_map`).
 
 Layout
     A head line (part, file, size) with a status line and a progress bar,
@@ -28,21 +29,25 @@ from __future__ import annotations
 import html
 import os
 import threading
+import time
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 import ipywidgets as W
-import numpy as np
 import plotly.graph_objects as go
 import xarray as xr
 
 from ndtmap._shared.arrays import is_lazy
 from ndtmap.errors import NdtmapError, ParameterTypeError
 from ndtmap.gates import GATE_MODES
-from ndtmap.workbench import plots
+from ndtmap.plot import PLAN_TRACES, find_chromium
+from ndtmap.scans import MAP_KINDS
+from ndtmap.workbench import view_figures as vf
+from ndtmap.workbench._sync import figure_widget, sync_traces
 from ndtmap.workbench._tasks import TaskRunner
-from ndtmap.workbench.state import MAP_KINDS, WorkbenchState, indication_details, indication_label
+from ndtmap.workbench.listing import indication_details, indication_label
+from ndtmap.workbench.state import WorkbenchState
 
 __all__ = ["Workbench", "open_workbench", "BACKGROUND_MIN_SAMPLES"]
 
@@ -50,13 +55,24 @@ __all__ = ["Workbench", "open_workbench", "BACKGROUND_MIN_SAMPLES"]
 BACKGROUND_MIN_SAMPLES = 20_000_000
 
 PLAN_WIDTH = 500
-_NOTE = "<div style='font-size:11px;line-height:1.35;color:#444'>"
 SIDE_WIDTH = 480
+ASCAN_HEIGHT = 300
+SECTION_HEIGHT = 260
+PROFILE_HEIGHT = 240
+_NOTE = "<div style='font-size:11px;line-height:1.35;color:#444'>"
+_ERROR = "color:#B00020"
 
-_KIND_LABELS = (("peak amplitude", "amplitude"), ("event depth", "depth"), ("wall thickness", "thickness"),
-                ("back-wall loss", "backwall-loss"))
-assert tuple(k for _, k in _KIND_LABELS) == MAP_KINDS
-
+#: Layout of the side views in the widget, over the figures' own: small margins, short depth axis title, no legend
+#: on the A-scan (each gate's name is written on its bar).
+_SIDE_LAYOUT = {
+    "ascan": dict(margin=dict(l=60, r=10, t=40, b=44), showlegend=False, clickmode="event"),
+    "bscan": dict(margin=dict(l=60, r=10, t=62, b=44), yaxis=dict(title=dict(text="depth [mm]")), clickmode="event"),
+    "dscan": dict(margin=dict(l=60, r=10, t=62, b=44), yaxis=dict(title=dict(text="depth [mm]")), clickmode="event"),
+}
+_KIND_TEXT = {"amplitude": "peak amplitude", "depth": "event depth", "thickness": "wall thickness",
+              "backwall-loss": "back-wall loss"}
+#: The map kinds of the tool bar: (label, kind) for every kind of ndtmap.scans.MAP_KINDS.
+_KIND_LABELS = tuple((_KIND_TEXT.get(k, k), k) for k in MAP_KINDS)
 
 def open_workbench(grid_or_path: xr.Dataset | str | os.PathLike[str], *, procedure: Any = None,
                    background: bool | None = None) -> Workbench:
@@ -105,49 +121,6 @@ def _message(exc: BaseException) -> str:
     return f"unexpected {type(exc).__name__}: {exc}"
 
 
-def _split(trace: Any) -> tuple[dict[str, Any], dict[str, np.ndarray]]:
-    """A trace as a dict without its type, and its 2-D arrays (heatmap ``z``) apart."""
-    spec = trace.to_plotly_json()
-    spec.pop("type", None)
-    arrays = {k: v for k, v in spec.items() if isinstance(v, np.ndarray) and v.ndim == 2}
-    for k in arrays:
-        spec.pop(k)
-    return spec, arrays
-
-
-def _push_arrays(widget: go.FigureWidget, k: int, arrays: dict[str, np.ndarray]) -> None:
-    """Send 2-D arrays as rows of float32: binary to the browser, NaN shown as gaps."""
-    if arrays:
-        rows = {key: [[np.ascontiguousarray(r, dtype=np.float32) for r in v]] for key, v in arrays.items()}
-        widget.plotly_restyle(rows, trace_indexes=[k])
-
-
-def _sync_traces(widget: go.FigureWidget, fig: go.Figure, *, first: int = 0, last: int | None = None,
-                 layout: dict[str, Any] | None = None) -> None:
-    """Copy the traces `first`..`last` (and the given layout parts) of `fig` into `widget`.
-
-    When the number or the types of the traces differ, all traces are
-    replaced. The axis ranges of `widget` are left alone unless `layout`
-    sets them, so a zoom survives a redraw. 2-D arrays travel as binary
-    rows (:func:`_push_arrays`), not as JSON.
-    """
-    new = list(fig.data)
-    with widget.batch_update():
-        same = len(widget.data) == len(new) and all(a.type == b.type for a, b in zip(widget.data, new, strict=True))
-        if not same:
-            widget.data = ()
-            parts = [_split(t) for t in new]
-            widget.add_traces([{"type": t.type, **spec} for t, (spec, _) in zip(new, parts, strict=True)])
-            for k, (_, arrays) in enumerate(parts):
-                _push_arrays(widget, k, arrays)
-        else:
-            stop = len(new) if last is None else last
-            for k in range(first, stop):
-                spec, arrays = _split(new[k])
-                widget.data[k].update(spec, overwrite=True)
-                _push_arrays(widget, k, arrays)
-        if layout:
-            widget.layout.update(layout)
 
 
 class Workbench:
@@ -213,8 +186,6 @@ class Workbench:
 
     def wait(self, timeout: float | None = 120.0) -> bool:
         """Wait until the computations asked for are done and drawn; False if `timeout` (s) passed."""
-        import time
-
         end = None if timeout is None else time.monotonic() + timeout
         for runner in (self._runner, self._list_runner, self._runner):
             left = None if end is None else max(0.0, end - time.monotonic())
@@ -228,10 +199,27 @@ class Workbench:
 
     # ------------------------------------------------------------------ building
     def _build(self) -> None:
-        st = self.state
-        c = self.controls
-        names = list(st.gate_names)
+        """Build every widget, in named parts, then link them to the state."""
+        head = self._build_head()
+        toolbar = self._build_toolbar()
+        self._build_figures()
+        tabs = W.Tab(children=[self._build_gates_panel(), self._build_ruler_panel(), self._build_indications_panel(),
+                               self._build_save_panel()], layout=W.Layout(width="100%"))
+        for k, title in enumerate(("Gates", "Drop ruler", "Indications", "Save")):
+            tabs.set_title(k, title)
+        self.tabs = tabs
+        left = W.VBox([toolbar, self.figures["plan"], tabs], layout=W.Layout(width=f"{PLAN_WIDTH + 45}px"))
+        right = W.VBox([self.figures["ascan"], self.figures["bscan"], self.figures["dscan"]],
+                       layout=W.Layout(width=f"{SIDE_WIDTH + 10}px"))
+        body = W.HBox([left, right], layout=W.Layout(flex_flow="row wrap", align_items="flex-start"))
+        self.widget = W.VBox([*head, body])
+        self.widget.add_class("ndtmap-workbench")
+        self._sync_gate_controls()
+        self._link()
 
+    def _build_head(self) -> list[Any]:
+        """The head line (part, file, size), the status line, the progress bar and the caution."""
+        st = self.state
         self.status = W.HTML(value="", layout=W.Layout(flex="1 1 auto"))
         self.progress = W.FloatProgress(value=1.0, min=0.0, max=1.0, bar_style="info",
                                         layout=W.Layout(width="140px"))
@@ -242,11 +230,14 @@ class Workbench:
             f"line-height:1.35'><b>Caution.</b> {html.escape(st.caution)}</div>"
         )
         caution.add_class("ndtmap-caution")
+        return [W.HBox([head, self.status, self.progress], layout=W.Layout(align_items="center")), caution]
 
-        # tool bar of the plan view
+    def _build_toolbar(self) -> W.HBox:
+        """The plan view's tool bar: map kind, gate, tool, whole map."""
+        st, c = self.state, self.controls
         c["map_kind"] = W.Dropdown(options=_KIND_LABELS, value=st.map_kind, description="map",
                                    style={"description_width": "32px"}, layout=W.Layout(width="170px"))
-        c["gate"] = W.Dropdown(options=names, value=st.active_gate, description="gate",
+        c["gate"] = W.Dropdown(options=list(st.gate_names), value=st.active_gate, description="gate",
                                style={"description_width": "32px"}, layout=W.Layout(width="140px"))
         c["tool"] = W.ToggleButtons(options=[("inspect", "inspect"), ("measure", "measure")], value=st.tool,
                                     tooltips=["a click selects the A-scan and the sections",
@@ -254,16 +245,21 @@ class Workbench:
                                     style={"button_width": "80px"})
         c["whole_map"] = W.Button(description="all", tooltip="show the whole scanned area",
                                   layout=W.Layout(width="44px"))
-        toolbar = W.HBox([c["map_kind"], c["gate"], c["tool"], c["whole_map"]],
-                         layout=W.Layout(flex_flow="row wrap", align_items="center"))
+        return W.HBox([c["map_kind"], c["gate"], c["tool"], c["whole_map"]],
+                      layout=W.Layout(flex_flow="row wrap", align_items="center"))
 
+    def _build_figures(self) -> None:
+        """The five views; the A-scan and the sections are filled when the first position is drawn."""
         self.figures["plan"] = self._first_plan()
-        self.figures["ascan"] = go.FigureWidget(layout=dict(width=SIDE_WIDTH, height=270, meta="ndtmap-ascan"))
-        self.figures["bscan"] = go.FigureWidget(layout=dict(width=SIDE_WIDTH, height=240, meta="ndtmap-bscan"))
-        self.figures["dscan"] = go.FigureWidget(layout=dict(width=SIDE_WIDTH, height=240, meta="ndtmap-dscan"))
-        self.figures["profile"] = go.FigureWidget(plots.profile_figure(None, width=PLAN_WIDTH - 20, height=240))
+        for key, height in (("ascan", ASCAN_HEIGHT), ("bscan", SECTION_HEIGHT), ("dscan", SECTION_HEIGHT)):
+            self.figures[key] = go.FigureWidget(layout=dict(width=SIDE_WIDTH, height=height, meta=f"ndtmap-{key}"))
+        self.figures["profile"] = figure_widget(vf.profile_view(None, width=PLAN_WIDTH - 20, height=PROFILE_HEIGHT),
+                                                meta="ndtmap-profile")
 
-        # Gates panel
+    def _build_gates_panel(self) -> W.VBox:
+        """The shown gate's fields, the detection signal, display options, adding and removing gates."""
+        st, c = self.state, self.controls
+        names = list(st.gate_names)
         full = float(st.grid.attrs.get("digitiser_full_scale_fsh", 100.0) or 100.0)
         c["start"] = W.FloatText(description="start", continuous_update=False, style={"description_width": "60px"},
                                  layout=W.Layout(width="170px"))
@@ -278,7 +274,7 @@ class Workbench:
         c["follows"] = W.Dropdown(options=[("(none)", "")] + [(n, n) for n in names], description="follows",
                                   layout=W.Layout(width="210px"))
         c["detect"] = W.Dropdown(options=[("rectified", "rectified"), ("envelope (RF)", "envelope")],
-                                 value=st.detect, description="signal", layout=W.Layout(width="210px"))
+                                 value=st.settings.detect, description="signal", layout=W.Layout(width="210px"))
         c["show_below_threshold"] = W.Checkbox(value=st.show_below_threshold, description="show below threshold",
                                                indent=False, layout=W.Layout(width="190px"))
         is_rf = st.grid["ascan"].attrs.get("signal", "rf") == "rf"
@@ -292,7 +288,7 @@ class Workbench:
         for key in ("start", "end", "threshold", "unit", "mode", "follows", "detect"):
             c[key].add_class(f"ndtmap-gate-{key}")
         self.gate_message = W.HTML()
-        gates_panel = W.VBox([
+        return W.VBox([
             W.HTML(_NOTE + "The shown gate (tool bar). Start and end are depths below the surface in mm, or "
                    "times on the record in us; for a gate that follows another, after that gate's event.</div>"),
             W.HBox([c["start"], c["end"], c["unit"]]),
@@ -304,16 +300,18 @@ class Workbench:
             self.gate_message,
         ])
 
-        # Drop ruler panel
+    def _build_ruler_panel(self) -> W.VBox:
+        """The drop ruler: the line's ends, the drop in dB, the result and the profile along the line."""
+        c = self.controls
         for key, desc in (("ruler_start_scan", "from scan"), ("ruler_start_index", "index"),
                           ("ruler_end_scan", "to scan"), ("ruler_end_index", "index")):
             c[key] = W.FloatText(description=desc, layout=W.Layout(width="150px"))
-        c["drop_db"] = W.BoundedFloatText(value=st.drop_db, min=0.5, max=40.0, step=0.5, description="drop dB",
-                                          layout=W.Layout(width="150px"))
+        c["drop_db"] = W.BoundedFloatText(value=self.state.drop_db, min=0.5, max=40.0, step=0.5,
+                                          description="drop dB", layout=W.Layout(width="150px"))
         c["measure"] = W.Button(description="measure", button_style="primary", layout=W.Layout(width="90px"))
         c["clear_measure"] = W.Button(description="clear", layout=W.Layout(width="70px"))
         self.ruler_result = W.HTML()
-        ruler_panel = W.VBox([
+        return W.VBox([
             W.HTML(_NOTE + "Choose <i>measure</i> in the tool bar and click the two ends of a line across an "
                    "indication on the plan view (or on a section), or type them here. The length is where the "
                    "amplitude along the line has dropped the set number of dB below the indication's peak "
@@ -325,17 +323,20 @@ class Workbench:
             self.figures["profile"],
         ])
 
-        # Indications panel
-        c["detection_gate"] = W.Dropdown(options=names, value=st.detection_gate, description="search gate",
+    def _build_indications_panel(self) -> W.VBox:
+        """The settings of the indication list, the list and the details of the selected indication."""
+        c, proc = self.controls, self.state.settings
+        names = list(self.state.gate_names)
+        c["detection_gate"] = W.Dropdown(options=names, value=proc.detection_gate, description="search gate",
                                          style={"description_width": "initial"}, layout=W.Layout(width="210px"))
         c["backwall_gate"] = W.Dropdown(options=[("(none)", "")] + [(n, n) for n in names],
-                                        value=st.backwall_gate or "", description="back-wall gate",
+                                        value=proc.backwall_gate or "", description="back-wall gate",
                                         style={"description_width": "initial"}, layout=W.Layout(width="230px"))
-        c["loss_threshold_db"] = W.BoundedFloatText(value=st.loss_threshold_db or 0.0, min=0.0, max=60.0, step=0.5,
-                                                    description="back-wall loss \u2265 dB (0: off)",
+        c["loss_threshold_db"] = W.BoundedFloatText(value=proc.backwall_loss_threshold_db or 0.0, min=0.0, max=60.0,
+                                                    step=0.5, description="back-wall loss \u2265 dB (0: off)",
                                                     style={"description_width": "initial"},
                                                     layout=W.Layout(width="230px"))
-        c["min_area_mm2"] = W.BoundedFloatText(value=st.min_area_mm2, min=0.0, max=1e9, step=1.0,
+        c["min_area_mm2"] = W.BoundedFloatText(value=proc.min_area_mm2, min=0.0, max=1e9, step=1.0,
                                                description="least area mm\u00b2",
                                                style={"description_width": "initial"}, layout=W.Layout(width="210px"))
         c["refresh_indications"] = W.Button(description="list again", layout=W.Layout(width="90px"))
@@ -343,18 +344,18 @@ class Workbench:
         c["indications"].add_class("ndtmap-indications")
         self.indication_head = W.HTML()
         self.indication_details = W.HTML()
-        ind_panel = W.VBox([
+        return W.VBox([
             W.HBox([c["detection_gate"], c["backwall_gate"]]),
             W.HBox([c["loss_threshold_db"], c["min_area_mm2"], c["refresh_indications"]]),
             self.indication_head, c["indications"], self.indication_details,
         ])
 
-        # Save panel
+    def _build_save_panel(self) -> W.VBox:
+        """Saving the views (HTML, PNG/SVG with Chromium) and the settings as a procedure file."""
+        c = self.controls
         c["save_folder"] = W.Text(value=str(Path.cwd() / "workbench-output"), description="folder",
                                   layout=W.Layout(width="98%"))
-        c["save_stem"] = W.Text(value=str(st.grid.attrs.get("part_id", "workbench")), description="name")
-        from ndtmap.plot.export import find_chromium
-
+        c["save_stem"] = W.Text(value=str(self.state.grid.attrs.get("part_id", "workbench")), description="name")
         browser = find_chromium() is not None
         c["save_png"] = W.Checkbox(value=browser, disabled=not browser, description="PNG", indent=False,
                                    layout=W.Layout(width="70px"))
@@ -366,7 +367,7 @@ class Workbench:
                                        tooltip="gates and settings as a procedure file for `ndtmap indications "
                                                "--procedure`", layout=W.Layout(width="120px"))
         self.save_message = W.HTML()
-        save_panel = W.VBox([
+        return W.VBox([
             c["save_folder"], c["save_stem"],
             W.HBox([W.HTML("HTML always" + ("; also&nbsp;" if browser else " (no Chromium: no PNG/SVG)&nbsp;")),
                     c["save_png"], c["save_svg"]]),
@@ -374,44 +375,20 @@ class Workbench:
             self.save_message,
         ])
 
-        tabs = W.Tab(children=[gates_panel, ruler_panel, ind_panel, save_panel], layout=W.Layout(width="100%"))
-        for k, title in enumerate(("Gates", "Drop ruler", "Indications", "Save")):
-            tabs.set_title(k, title)
-        self.tabs = tabs
-
-        left = W.VBox([toolbar, self.figures["plan"], tabs], layout=W.Layout(width=f"{PLAN_WIDTH + 45}px"))
-        right = W.VBox([self.figures["ascan"], self.figures["bscan"], self.figures["dscan"]],
-                       layout=W.Layout(width=f"{SIDE_WIDTH + 10}px"))
-        body = W.HBox([left, right], layout=W.Layout(flex_flow="row wrap", align_items="flex-start"))
-        top = W.HBox([head, self.status, self.progress], layout=W.Layout(align_items="center"))
-        self.widget = W.VBox([top, caution, body])
-        self.widget.add_class("ndtmap-workbench")
-
-        self._sync_gate_controls()
-        self._link()
-
     def _first_plan(self) -> go.FigureWidget:
         """The plan view's widget, made from the first map when it is at hand (one message, not many)."""
         st = self.state
-        fig = None
         if not self._background_asked_or_needed():
             try:
                 m = st.map()
-                fig = plots.plan_figure(m, point=st.point, width=PLAN_WIDTH)
+                widget = figure_widget(vf.plan_view(st, m, width=PLAN_WIDTH), meta="ndtmap-plan")
+                self._shown_map = m
+                return widget
             except NdtmapError as exc:
                 self._error(exc)
-        if fig is None:
-            fig = go.Figure(data=[go.Heatmap(z=[[None]])] + [go.Scatter(x=[], y=[]) for _ in plots.PLAN_TRACES[1:]],
-                            layout=dict(width=PLAN_WIDTH, height=360, meta="ndtmap-plan"))
-            widget = go.FigureWidget(fig)
-            return widget
-        parts = [_split(t) for t in fig.data]
-        widget = go.FigureWidget(data=[{"type": t.type, **spec} for t, (spec, _) in zip(fig.data, parts, strict=True)],
-                                 layout=fig.layout)
-        for k, (_, arrays) in enumerate(parts):
-            _push_arrays(widget, k, arrays)
-        self._shown_map = m
-        return widget
+        empty = go.Figure(data=[go.Heatmap(z=[[None]])] + [go.Scatter(x=[], y=[]) for _ in PLAN_TRACES[1:]],
+                          layout=dict(width=PLAN_WIDTH, height=360, meta="ndtmap-plan"))
+        return go.FigureWidget(empty)
 
     def _background_asked_or_needed(self) -> bool:
         if self._asked_background is not None:
@@ -463,22 +440,22 @@ class Workbench:
             self.progress.bar_style = "info"
             self.progress.value = 0.5 if fraction is None else float(fraction)
         else:
-            if "color:#B00020" not in self.status.value:
+            if _ERROR not in self.status.value:
                 self.status.value = "<span style='color:#2E7D32'>ready</span>"
             self.progress.value = 1.0
             self.progress.bar_style = "success"
 
     def _error(self, exc: BaseException, where: W.HTML | None = None) -> None:
         text = html.escape(_message(exc))
-        self.status.value = f"<span style='color:#B00020'>{text}</span>"
+        self.status.value = f"<span style='{_ERROR}'>{text}</span>"
         if where is not None:
-            where.value = f"<span style='color:#B00020'>{text}</span>"
+            where.value = f"<span style='{_ERROR}'>{text}</span>"
 
     def _guard(self, action: Callable[[], Any], where: W.HTML | None = None) -> Any:
         """Run a user's action; show its error (if any) in the status line and in `where`."""
-        if where is not None and "color:#B00020" in where.value:
+        if where is not None and _ERROR in where.value:
             where.value = ""
-        if "color:#B00020" in self.status.value:
+        if _ERROR in self.status.value:
             self.status.value = "<span style='color:#2E7D32'>ready</span>"
         try:
             return action()
@@ -571,64 +548,46 @@ class Workbench:
 
         self._list_runner.submit("indications", work, done, failed)
 
+
     # ------------------------------------------------------------------ drawing
     def _draw_plan(self, m: xr.DataArray, meas: Any) -> None:
-        st = self.state
-        recs = st.indications() if st.has_analysis() else []
-        g = st.gate()
-        fig = plots.plan_figure(m, point=st.point, indications=recs, selected=st.selected_indication,
-                                measurement=meas, line=st.line, pending=st.measure_points,
-                                threshold_fsh=g.threshold_fsh, show_below_threshold=st.show_below_threshold,
-                                width=PLAN_WIDTH)
+        fig = vf.plan_view(self.state, m, meas, width=PLAN_WIDTH)
         with self._draw_lock:
-            plan = self.figures["plan"]
             first_draw = self._shown_map is None
-            layout: dict[str, Any] = {"title": fig.layout.title.to_plotly_json(), "meta": "ndtmap-plan"}
-            if first_draw:
-                layout = fig.layout.to_plotly_json()
-            _sync_traces(plan, fig, layout=layout)
+            sync_traces(self.figures["plan"], fig, parts=("title",), whole_layout=first_draw, meta="ndtmap-plan")
             self._shown_map = m
         self._clicks_on()
 
     def _draw_overlays(self) -> None:
-        st = self.state
         if self._shown_map is None:
             return
-        meas = st.cached_measurement()
-        recs = st.indications() if st.has_analysis() else []
-        traces = plots.plan_overlays(st.scan_mm, st.index_mm, point=st.point, indications=recs,
-                                     selected=st.selected_indication, measurement=meas, line=st.line,
-                                     pending=st.measure_points)
-        fig = go.Figure(data=[go.Heatmap()] + traces)
+        traces = vf.plan_view_overlays(self.state, self.state.cached_measurement())
         with self._draw_lock:
-            _sync_traces(self.figures["plan"], fig, first=1)
+            sync_traces(self.figures["plan"], go.Figure(data=[go.Heatmap(), *traces]), first=1)
         self._clicks_on()
 
     def _draw_point(self, ascan: Any, bscan: Any, bgates: Any, dscan: Any, dgates: Any) -> None:
         st = self.state
-        order = list(st.gate_names)
-        fa = plots.ascan_figure(ascan, gate_order=order, show_rf=bool(self.controls["show_rf"].value),
-                                width=SIDE_WIDTH)
-        fb = plots.section_figure(bscan, along="scan", cursor_mm=st.point[0], gates=bgates, gate_order=order,
-                                  width=SIDE_WIDTH, height=240, title=f"B-scan at index {st.point[1]:.2f} mm")
-        fd = plots.section_figure(dscan, along="index", cursor_mm=st.point[1], gates=dgates, gate_order=order,
-                                  width=SIDE_WIDTH, height=240, title=f"D-scan at scan {st.point[0]:.2f} mm")
+        figs = {
+            "ascan": vf.ascan_view(st, ascan, show_rf=bool(self.controls["show_rf"].value), width=SIDE_WIDTH,
+                                   height=ASCAN_HEIGHT),
+            "bscan": vf.section_view(st, "scan", bscan, bgates, width=SIDE_WIDTH, height=SECTION_HEIGHT),
+            "dscan": vf.section_view(st, "index", dscan, dgates, width=SIDE_WIDTH, height=SECTION_HEIGHT),
+        }
         with self._draw_lock:
-            for key, fig in (("ascan", fa), ("bscan", fb), ("dscan", fd)):
+            for key, fig in figs.items():
                 w = self.figures[key]
-                fresh = len(w.data) == 0
-                layout = fig.layout.to_plotly_json() if fresh else {
-                    "title": fig.layout.title.to_plotly_json(), "yaxis": {"range": list(fig.layout.yaxis.range)}
-                    if key == "ascan" else {}}
-                _sync_traces(w, fig, layout=layout)
+                parts = ("title", "shapes", "annotations") + (("yaxis",) if key == "ascan" else ())
+                sync_traces(w, fig, parts=parts, whole_layout=len(w.data) == 0, meta=f"ndtmap-{key}",
+                            **_SIDE_LAYOUT[key])
         self._clicks_on()
 
     def _draw_ruler(self, meas: Any, err: BaseException | None = None) -> None:
-        fig = plots.profile_figure(meas, width=PLAN_WIDTH - 20, height=240)
+        fig = vf.profile_view(meas, width=PLAN_WIDTH - 20, height=PROFILE_HEIGHT)
         with self._draw_lock:
-            _sync_traces(self.figures["profile"], fig, layout={"title": fig.layout.title.to_plotly_json()})
+            sync_traces(self.figures["profile"], fig, parts=("title",))
         if err is not None:
-            self.ruler_result.value = f"<span style='color:#B00020'>{html.escape(_message(err))}</span>"
+            self.ruler_result.value = f"<span style='{_ERROR}'>{html.escape(_message(err))}</span>"
         elif meas is None:
             self.ruler_result.value = ""
         else:
@@ -684,16 +643,16 @@ class Workbench:
             c["gate"].value = st.active_gate
             c["follows"].options = [("(none)", "")] + [(n, n) for n in names if n != g.name]
             c["detection_gate"].options = names
-            c["detection_gate"].value = st.detection_gate
+            c["detection_gate"].value = st.settings.detection_gate
             c["backwall_gate"].options = [("(none)", "")] + [(n, n) for n in names]
-            c["backwall_gate"].value = st.backwall_gate or ""
+            c["backwall_gate"].value = st.settings.backwall_gate or ""
             c["start"].value = g.start
             c["end"].value = g.end
             c["unit"].value = g.unit
             c["threshold"].value = g.threshold_fsh
             c["mode"].value = g.mode
             c["follows"].value = g.follows or ""
-            c["detect"].value = st.detect
+            c["detect"].value = st.settings.detect
             c["start"].description = f"start {g.unit}"
             c["end"].description = f"end {g.unit}"
         finally:
@@ -843,14 +802,13 @@ class Workbench:
     def _on_detection_settings(self, change: dict[str, Any]) -> None:
         if self._syncing:
             return
-        st, c = self.state, self.controls
+        c = self.controls
 
-        def apply() -> bool:
-            st.set_detection_gate(c["detection_gate"].value)
-            st.set_backwall_gate(c["backwall_gate"].value or None)
-            st.set_loss_threshold_db(float(c["loss_threshold_db"].value) or None)
-            st.set_min_area_mm2(float(c["min_area_mm2"].value))
-            return True
+        def apply() -> Any:
+            return self.state.set_detection(
+                detection_gate=c["detection_gate"].value, backwall_gate=c["backwall_gate"].value or None,
+                loss_threshold_db=float(c["loss_threshold_db"].value) or None,
+                min_area_mm2=float(c["min_area_mm2"].value))
 
         if self._guard(apply, self.indication_head):
             self._request_indications()
@@ -878,7 +836,7 @@ class Workbench:
         formats = ["html"] + [f for f in ("png", "svg") if c[f"save_{f}"].value and not c[f"save_{f}"].disabled]
         self._report(None, "saving the views")
         try:
-            paths = plots.save_views(self.state, self._save_folder(), stem=c["save_stem"].value, formats=formats)
+            paths = vf.save_views(self.state, self._save_folder(), stem=c["save_stem"].value, formats=formats)
         finally:
             self._report(1.0, "")
         self.save_message.value = "wrote " + ", ".join(f"<code>{html.escape(p.name)}</code>" for p in paths) + \

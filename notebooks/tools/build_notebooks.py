@@ -74,15 +74,15 @@ at what depth each one lies.
 """),
     code("""
 # NBVAL_IGNORE_OUTPUT
+from ndtmap.plot import map_figure
 from ndtmap.scans import amplitude_map, depth_map
-from ndtmap.workbench import plots
 
 amp = amplitude_map(grid, flaw)
-plots.plan_figure(amp)"""),
+map_figure(amp, title="KFP-PL-2041: peak amplitude in the flaw gate")"""),
     code("""
 # NBVAL_IGNORE_OUTPUT
 depth = depth_map(grid, flaw)
-plots.plan_figure(depth)"""),
+map_figure(depth, title="KFP-PL-2041: event depth in the flaw gate")"""),
     md("""
 ## Sections and an A-scan
 
@@ -91,19 +91,18 @@ along the index axis at one scan position. Both go through lamination L1 here.
 """),
     code("""
 # NBVAL_IGNORE_OUTPUT
+from ndtmap.plot import section_figure
 from ndtmap.scans import b_scan
 
-plots.section_figure(b_scan(grid, 24.0), along="scan", cursor_mm=37.5, title="B-scan at index 24 mm")"""),
+section_figure(b_scan(grid, 24.0), cursor_mm=37.5, title="B-scan at index 24 mm")"""),
     code("""
 # NBVAL_IGNORE_OUTPUT
-from ndtmap.procedure import Procedure
-from ndtmap.workbench import WorkbenchState
+from ndtmap.gates import evaluate_gates
+from ndtmap.plot import ascan_at, ascan_figure
 
-procedure = Procedure("quick start", (flaw, backwall), "flaw", backwall_gate="backwall",
-                      backwall_loss_threshold_db=6.0, min_positions=2)
-state = WorkbenchState(grid, procedure=procedure)
-state.select_point(37.5, 24.0)
-plots.ascan_figure(state.ascan())"""),
+ascan = ascan_at(grid, 37.5, 24.0)
+at_l1 = evaluate_gates(grid.sel(scan=[37.5], index=[24.0]), [flaw, backwall])
+ascan_figure(ascan, [flaw, backwall], gate_results=at_l1, title="A-scan at scan 37.5 mm, index 24 mm")"""),
     md("""
 Over L1 the back wall is gone from the A-scan: the lamination shadows it. The echo near 22 mm is
 L1's **second** echo (2 x 11 mm: sound bouncing lamination - surface - lamination), not a reflector
@@ -121,7 +120,8 @@ for r in scan_truth(grid)["reflectors"]:
     md("""
 ## The workbench
 
-The workbench links a plan view, the A-scan and the two sections through the selected position.
+The workbench links a plan view, the A-scan and the two sections through the selected position
+(drawn by the same `ndtmap.plot` functions as above and as the reports).
 Click the plan view to move the position; edit the gates in the *Gates* panel and the map follows;
 choose *measure* and click two points across an indication to get its 6 dB drop length; the
 *Indications* panel lists what `ndtmap indications` would report with the same settings, and
@@ -129,8 +129,11 @@ choose *measure* and click two points across an indication to get its 6 dB drop 
 """),
     code("""
 # NBVAL_IGNORE_OUTPUT
+from ndtmap.procedure import Procedure
 from ndtmap.workbench import open_workbench
 
+procedure = Procedure("quick start", (flaw, backwall), "flaw", backwall_gate="backwall",
+                      backwall_loss_threshold_db=6.0, min_positions=2)
 wb = open_workbench(sample_path("plate_laminations.nc"), procedure=procedure)
 wb"""),
     md("""
@@ -180,9 +183,10 @@ scan. The purple-orange scale is centred on no loss.
 """),
     code("""
 # NBVAL_IGNORE_OUTPUT
-from ndtmap.workbench import plots
+from ndtmap.plot import map_figure
 
-plots.plan_figure(analysis.maps["backwall_loss"], indications=analysis.indications)"""),
+loss_indications = [rec for rec in analysis.indications if rec["kind"] == "backwall_loss"]
+map_figure(analysis.maps["backwall_loss"], indications=loss_indications, title="KFP-PL-2041: back-wall loss")"""),
     md("""
 ## Sizes against the truth
 
@@ -286,9 +290,9 @@ for r in truth["reflectors"][:3]:
     print(f"{r['label']}: {a:.1f} %FSH at its position")"""),
     code("""
 # NBVAL_IGNORE_OUTPUT
-from ndtmap.workbench import plots
+from ndtmap.plot import map_figure
 
-plots.plan_figure(amp)"""),
+map_figure(amp, title="KFP-FG-0317: peak amplitude, 80-150 mm")"""),
     md("""
 The strongest thing in the deep gate is not a small reflector: at about 110 mm, right below the
 planar reflector at 55 mm, is its **repeat echo** (sound bouncing reflector - surface - reflector).
@@ -378,10 +382,10 @@ for start in (11.0, 6.0):
           f"positions without a thickness {int(np.isnan(t.values).sum())}")"""),
     code("""
 # NBVAL_IGNORE_OUTPUT
-from ndtmap.workbench import plots
+from ndtmap.plot import thickness_figure
 
 thickness = thickness_map(grid, Gate("backwall", 6.0, 13.4, threshold_fsh=10.0))
-plots.plan_figure(thickness)"""),
+thickness_figure(thickness, nominal_mm=12.0, title="KFP-PW-1180: remaining wall")"""),
     md("""
 ## Against the truth
 
@@ -404,7 +408,7 @@ never an assumed thickness.
 
 ## Figures for the report
 
-`ndtmap.plot.export.write_figure` writes HTML always, and PNG, SVG or PDF when a Chromium browser is
+`ndtmap.plot.write_figure` writes HTML always, and PNG, SVG or PDF when a Chromium browser is
 installed. The workbench's *Save* panel does the same for its current views.
 """),
     code("""
@@ -415,7 +419,7 @@ from pathlib import Path
 from ndtmap.plot import find_chromium, write_figure
 
 out = Path(tempfile.mkdtemp(prefix="kfp-pw-1180-"))
-fig = plots.plan_figure(thickness, title="KFP-PW-1180 remaining wall")
+fig = thickness_figure(thickness, nominal_mm=12.0, title="KFP-PW-1180 remaining wall")
 written = [write_figure(fig, out / "thickness.html")]
 if find_chromium() is not None:
     written.append(write_figure(fig, out / "thickness.png"))

@@ -112,15 +112,16 @@ def test_workbench_renders_follows_gate_edits_and_clicks(tmp_path):
             page.wait_for_function(
                 f"""() => {{ const el = ({FIND})('ndtmap-ascan');
                     const g = el && el.data.find(t => (t.name || '').startsWith('flaw'));
-                    return g && Math.max(...g.y) === 10.5; }}""", timeout=30_000)
+                    return g && g.y[3] === 10.5; }}""", timeout=30_000)  # the bar's level: its middle segment
 
             # a click on lamination L1 in the plan view shows the A-scan there
             _click_at(page, "ndtmap-plan", 37.5, 24.0)
             page.wait_for_function(
                 f"""() => {{ const el = ({FIND})('ndtmap-ascan');
-                    return el && el.layout.title.text.includes('scan 37.50 mm, index 24.00 mm')
-                           && el.data[1].y.length > 0; }}""", timeout=30_000)
-            n = page.evaluate(f"() => ({FIND})('ndtmap-ascan').data[1].y.length")
+                    const a = el && el.data.find(t => (t.name || '').startsWith('A-scan'));
+                    return a && el.layout.title.text.includes('scan 37.50 mm, index 24.00 mm') && a.y.length > 0;
+                }}""", timeout=30_000)
+            n = page.evaluate(f"() => ({FIND})('ndtmap-ascan').data.find(t => t.name.startsWith('A-scan')).y.length")
             assert n == 701  # every sample of the A-scan (plate_laminations.nc has 701)
             page.wait_for_function(  # the B-scan moved to the clicked index position
                 f"() => ({FIND})('ndtmap-bscan').layout.title.text.includes('at index 24.00 mm')", timeout=30_000)

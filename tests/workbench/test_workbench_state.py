@@ -21,9 +21,10 @@ from ndtmap.gates import Gate, evaluate_gate
 from ndtmap.grid import ascan_in_fsh, make_grid
 from ndtmap.indications import detect_indications, drop_length
 from ndtmap.procedure import load_procedure, run_procedure
-from ndtmap.scans import b_scan, d_scan, map_by_kind
+from ndtmap.scans import MAP_KINDS, b_scan, d_scan, map_by_kind
 from ndtmap.simulate import sample_path, scan_truth
-from ndtmap.workbench.state import MAP_KINDS, WorkbenchState, default_procedure, indication_details
+from ndtmap.workbench.listing import indication_details
+from ndtmap.workbench.state import WorkbenchState, default_procedure
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -196,9 +197,9 @@ def test_select_point_snaps_and_the_ascan_and_sections_are_those_of_the_grid(sta
     np.testing.assert_allclose(view.signal_fsh, np.abs(raw))  # rectified = |RF|
     np.testing.assert_allclose(view.rf_fsh, raw)
     marks = {m.name: m for m in view.gates}
-    assert marks["flaw"].triggered and marks["flaw"].start_depth_mm == pytest.approx(1.0)
+    assert marks["flaw"].triggered and marks["flaw"].start_at == pytest.approx(1.0)
     l1 = next(r for r in scan_truth(plate)["reflectors"] if r["label"].startswith("L1"))
-    assert marks["flaw"].event_depth_mm == pytest.approx(l1["depth_mm"], abs=0.5)  # the echo of lamination L1
+    assert marks["flaw"].event_at == pytest.approx(l1["depth_mm"], abs=0.5)  # the echo of lamination L1
     np.testing.assert_array_equal(state.b_scan().values, b_scan(plate, 24.0).values)
     np.testing.assert_array_equal(state.d_scan().values, d_scan(plate, 37.5).values)
     lines = {g.name: g for g in state.section_gates("scan")}
@@ -340,3 +341,89 @@ def test_dask_backed_grid_gives_the_same_map_and_reports_progress(plate):
     np.testing.assert_allclose(m.values, ref.values, equal_nan=True)
     assert seen and all(0.0 <= f <= 1.0 for f, _ in seen if f is not None)
     assert seen[-1][0] == pytest.approx(1.0)
+
+
+# ---------------------------------------------------------------------------- settings as one procedure
+
+
+def test_settings_are_one_procedure_and_every_edit_makes_a_new_one(state):
+    from ndtmap.procedure import Procedure
+
+    before = state.settings
+    assert isinstance(before, Procedure)
+    state.set_gate("flaw", threshold_fsh=30.0)
+    state.set_detection(min_area_mm2=5.0)
+    after = state.settings
+    assert after is not before and before.gate("flaw").threshold_fsh != 30.0 and before.min_area_mm2 == 0.0
+    assert after.gate("flaw").threshold_fsh == 30.0 and after.min_area_mm2 == 5.0
+    with pytest.raises(GateError, match="both"):
+        state.set_detection(backwall_gate="flaw")  # the searched gate cannot be the back-wall gate
+    with pytest.raises(NdtmapError):
+        state.set_detection(min_area_mm2=-1.0)
+    assert state.settings is after  # a refused edit leaves the settings as they were
+
+
+def test_a_loss_level_needs_a_back_wall_gate_and_goes_with_it(state):
+    assert state.settings.backwall_gate == "backwall"
+    state.set_detection(backwall_gate=None, loss_threshold_db=6.0)  # the view sends all settings at once
+    assert state.settings.backwall_gate is None and state.settings.backwall_loss_threshold_db is None
+    with pytest.raises(GateError, match="back-wall gate"):
+        state.set_loss_threshold_db(6.0)
+    state.set_detection(backwall_gate="backwall", loss_threshold_db=6.0)
+    assert state.settings.backwall_loss_threshold_db == 6.0
+
+
+def test_the_indication_list_is_cached_by_the_procedure(state, monkeypatch):
+    import ndtmap.workbench.state as wb_state
+
+    first = state.analysis()
+    calls = []
+    real = wb_state.run_procedure
+    monkeypatch.setattr(wb_state, "run_procedure", lambda *a, **k: calls.append(1) or real(*a, **k))
+    state.set_gate("flaw", threshold_fsh=40.0)
+    assert not state.has_analysis()
+    second = state.analysis()
+    assert calls == [1] and second is not first
+    state.set_gate("flaw", threshold_fsh=first.procedure.gate("flaw").threshold_fsh)  # back to the first settings
+    assert state.has_analysis() and state.analysis() is first and calls == [1]  # from the cache, not run again
+
+
+def test_a_level_in_db_re_the_back_wall_is_resolved_once_and_saved_in_db(plate):
+    from dataclasses import replace
+
+    from ndtmap.procedure import first_look_procedure
+
+    base = first_look_procedure(plate)
+    gates = tuple(replace(g, threshold_fsh=None, threshold_db=-12.0, reference="backwall") if g.name == "flaw" else g
+                  for g in base.gates)
+    proc = replace(base, gates=gates)
+    st = WorkbenchState(plate, procedure=proc)
+    nominal = float(map_by_kind(plate, "backwall-loss", proc.gate("backwall")).attrs["nominal_fsh"])
+    # -12 dB re the back wall: nominal * 10^(-12/20) (the decibel, amplitude ratio)
+    assert st.gate("flaw").threshold_fsh == pytest.approx(nominal * 10 ** (-12.0 / 20.0), rel=1e-12)
+    saved = st.procedure()
+    assert saved.gate("flaw").threshold_fsh is None and saved.gate("flaw").threshold_db == -12.0
+    assert json.dumps(st.indications()) == json.dumps(run_procedure(plate, proc).indications)
+
+
+def test_immersion_thickness_counts_from_the_interface_echo():
+    # thickness = c (t_backwall - t_interface) / 2 (Krautkramer, immersion testing, from memory): the water path
+    # varies from position to position, the thickness does not
+    from helpers.burst_grids import grid_from
+
+    from ndtmap.procedure import Procedure
+    from ndtmap.scans import thickness_map
+
+    wall_us = 2 * 12.0 / 5.92  # 12 mm of steel
+    grid = grid_from(lambda s, i: [(2.0 + 0.3 * s, 80.0), (2.0 + 0.3 * s + wall_us, 50.0)],
+                     attrs={"water_path_mm": 15.0})
+    iface = Gate("interface", 1.0, 3.5, unit="us", threshold_fsh=30.0)
+    bw = Gate("backwall", 2.0, 6.0, unit="us", threshold_fsh=20.0, follows="interface")
+    st = WorkbenchState(grid, procedure=Procedure("immersion", (iface, bw), "interface"))
+    thick = st.map("thickness", "backwall")
+    ref = thickness_map(grid, bw, reference_gate=iface, method="interface-to-backwall")
+    np.testing.assert_allclose(thick.values, ref.values, rtol=1e-12)
+    half_period = 0.5 * 5.92 / 5.0 / 2  # a rectified RF peak lies within half a period of the echo centre
+    assert np.allclose(thick.values, 12.0, atol=half_period)
+    assert thick.attrs["thickness_method"] == "interface-to-backwall"
+    assert st.map("thickness", "backwall") is thick  # cached with the gate results

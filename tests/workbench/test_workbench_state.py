@@ -403,7 +403,7 @@ def test_a_level_in_db_re_the_back_wall_is_resolved_once_and_saved_in_db(plate):
     assert st.gate("flaw").threshold_fsh == pytest.approx(nominal * 10 ** (-12.0 / 20.0), rel=1e-12)
     saved = st.procedure()
     assert saved.gate("flaw").threshold_fsh is None and saved.gate("flaw").threshold_db == -12.0
-    assert json.dumps(st.indications()) == json.dumps(run_procedure(plate, proc).indications)
+    assert [r.to_dict() for r in st.indications()] == [r.to_dict() for r in run_procedure(plate, proc).indications]
 
 
 def test_immersion_thickness_counts_from_the_interface_echo():

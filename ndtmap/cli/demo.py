@@ -73,13 +73,6 @@ def _locate_sample(sample: str, output: Path, echo: Callable[[str], None]) -> Pa
         return build_samples(output / "sample_grids", names=[sample])[0]
 
 
-def _largest(records: list[dict[str, Any]]) -> dict[str, Any] | None:
-    amp = [r for r in records if r.get("kind") == "amplitude" and "repeat_echo" not in r.get("flags", [])]
-    if not amp:
-        return None
-    return max(amp, key=lambda r: (r.get("area_mm2") or 0.0, r.get("peak_fsh") or 0.0))
-
-
 def run_demo(
     *, output: Path, sample: str = "plate_laminations.nc", echo: Callable[[str], None] = print, report: bool = True
 ) -> int:
@@ -97,7 +90,7 @@ def run_demo(
         Also write the report bundle.
     """
     from ndtmap.grid.summary import format_summary, grid_summary
-    from ndtmap.indications.tables import indications_csv, indications_text
+    from ndtmap.indications import indications_csv, indications_text, largest_indication
     from ndtmap.io import atomic_write_text, open_grid, save_map
     from ndtmap.procedure import first_look_procedure, procedure_to_toml, run_procedure
     from ndtmap.scans.maps import map_dataset
@@ -125,7 +118,7 @@ def run_demo(
         target = save_map(map_dataset(m), output / f"map_{kind}.nc")
         echo(f"  {kind:<20} {m.attrs.get('long_name', '')} [{m.attrs.get('units', '')}] -> {target}")
 
-    biggest = _largest(analysis.indications)
+    biggest = largest_indication(analysis.indications)
     if biggest is not None:
         echo(
             f"\nsections through indication #{biggest['id']} at scan {biggest['scan_mm']:g} mm, "

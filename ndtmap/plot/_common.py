@@ -189,3 +189,23 @@ def new_figure(kind: str, traces: list[Any], layout: dict[str, Any], *, title: s
     for k, trace in enumerate(traces):
         trace.uid = f"{kind}-{k}"
     return go.Figure(data=traces, layout={**layout, **_frame(kind, title, note, width, height)})
+
+
+def typed_records(name: str, indications: Any) -> list[Any]:
+    """:func:`checked_records`, each an :class:`~ndtmap.indications.IndicationRecord` (which carries its regions).
+
+    Raises
+    ------
+    ParameterTypeError
+        For a record of another type (a plain dict, say).
+    """
+    from ndtmap.indications import IndicationRecord
+
+    recs = checked_records(name, indications)
+    for k, rec in enumerate(recs):
+        if not isinstance(rec, IndicationRecord):
+            raise ParameterTypeError(
+                f"`{name}[{k}]` must be an IndicationRecord (from ndtmap.size_indications or run_procedure), which "
+                f"carries the region it was sized on; got {type(rec).__name__}"
+            )
+    return recs

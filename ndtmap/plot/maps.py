@@ -24,7 +24,7 @@ import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
 from ndtmap.errors import ParameterError
-from ndtmap.plot._common import axis_title, cell_edges, checked_records, colour_range, escape, finish
+from ndtmap.plot._common import axis_title, cell_edges, colour_range, escape, finish, typed_records
 from ndtmap.plot.outlines import indication_outlines, outline_traces
 from ndtmap.plot.style import AXIS_COLOR, INK, MARK_COLOR, MISSING_COLOR, color_scale_for, label_from_attrs, nice_length
 
@@ -192,7 +192,7 @@ def map_figure(
     m = mg.as_map("map_da", map_da)
     if outline_map is not None:
         mg.check_same_grid("outline_map", mg.as_map("outline_map", outline_map), "map_da", m)
-    outlines = indication_outlines(checked_records("indications", indications),
+    outlines = indication_outlines(typed_records("indications", indications),
                                    map_da if outline_map is None else outline_map)
     layout, xe, ye = plan_layout(map_da)
     fig = go.Figure(data=[map_heatmap(map_da)], layout=layout)

@@ -18,8 +18,6 @@ sized on; :func:`outline_traces` draws one pair of traces per indication
 
 from __future__ import annotations
 
-import math
-import re
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -28,10 +26,9 @@ import numpy as np
 import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
-from ndtmap.errors import ParameterError, SizingError
-from ndtmap.indications.detection import Indication
-from ndtmap.indications.sizing import drop_factor, drop_length, level_length
-from ndtmap.plot._common import cell_edges, checked_records, escape, fmt
+from ndtmap.errors import ParameterError
+from ndtmap.indications import IndicationRecord
+from ndtmap.plot._common import cell_edges, escape, fmt, typed_records
 from ndtmap.plot._common import field as rec_field
 from ndtmap.plot.style import OUTLINE_COLOR
 
@@ -165,77 +162,26 @@ def _peak_cell(m: xr.DataArray, rec: Mapping[str, Any]) -> tuple[int, int]:
     return out[0], out[1]
 
 
-_LEVEL_DB = re.compile(r">=\s*([-+]?\d+(?:\.\d*)?(?:[eE][-+]?\d+)?)\s*dB")
+def _sized_region(m: xr.DataArray, rec: IndicationRecord) -> tuple[np.ndarray | None, str, tuple[int, int]]:
+    """The region the record was sized on, if `m` is a map of the kind it was sized on (else None).
 
-
-def _loss_level_db(rec: Mapping[str, Any]) -> float | None:
-    for key in ("detection_level", "sizing_method"):
-        found = _LEVEL_DB.search(str(rec.get(key) or ""))
-        if found:
-            return float(found.group(1))
-    return None
-
-
-def _indication_region(m: xr.DataArray, rec: Mapping[str, Any]) -> tuple[np.ndarray | None, str, tuple[int, int]]:
-    """The sizing region of a record on map `m` (None when the map is not the one it was sized on)."""
+    An amplitude indication is outlined on %FSH maps, a back-wall-loss
+    indication on dB maps, both on the positions of the map they were found on.
+    """
     pk = _peak_cell(m, rec)
-    values = m.values
-    units = m.attrs.get("units")
-    kind = rec.get("kind")
-    if kind == "amplitude" and units == "%FSH":
-        peak = float(values[pk])
-        if not (math.isfinite(peak) and peak > 0):
-            return None, "", pk
-        level = peak * drop_factor(6.0)
-        what = "-6 dB"
-    elif kind == "backwall_loss" and units == "dB":
-        level_db = _loss_level_db(rec)
-        if level_db is None:
-            return None, "", pk
-        level = level_db
-        what = f"loss >= {level_db:g} dB"
-    else:
+    region = rec.sized_region
+    wanted = "%FSH" if rec.kind == "amplitude" else "dB"
+    if (region is None or m.attrs.get("units") != wanted or region.shape != m.shape
+            or tuple(rec.peak_index) != pk or not region.any()):
         return None, "", pk
-    with np.errstate(invalid="ignore"):
-        mask = np.isfinite(values) & (values >= level)
-    region = mg.connected_to(mask, pk)
-    return (region if region.any() else None), what, pk
+    if rec.kind == "amplitude":
+        return region, "-6 dB", pk
+    return region, f"loss >= {rec.sizing_level_db:g} dB", pk
 
 
-def _as_indication(m: xr.DataArray, rec: Mapping[str, Any], region: np.ndarray, pk: tuple[int, int]) -> Indication:
-    """An Indication standing for a record (for re-measuring its drop lengths on the same map)."""
-    return Indication(
-        id=int(rec["id"]), kind=str(rec.get("kind", "amplitude")), peak_fsh=rec.get("peak_fsh"),
-        peak_db=rec.get("peak_db"), reference_fsh=rec.get("reference_fsh"),
-        backwall_loss_db=rec.get("backwall_loss_db"), scan_mm=float(rec["scan_mm"]),
-        index_mm=float(rec["index_mm"]), peak_position=pk, depth_mm=rec.get("depth_mm"),
-        depth_min_mm=rec.get("depth_min_mm"), depth_max_mm=rec.get("depth_max_mm"),
-        scan_min_mm=float(rec.get("scan_min_mm", rec["scan_mm"])),
-        scan_max_mm=float(rec.get("scan_max_mm", rec["scan_mm"])),
-        index_min_mm=float(rec.get("index_min_mm", rec["index_mm"])),
-        index_max_mm=float(rec.get("index_max_mm", rec["index_mm"])), n_positions=int(region.sum()),
-        area_mm2=rec.get("area_mm2"), detection_level=str(rec.get("detection_level", "")),
-        touches_edge=mg.touches_edge(region), missing_adjacent=0, region=region,
-    )
-
-
-def _drop_ends(m: xr.DataArray, rec: Mapping[str, Any], axis: str, edge: str) -> tuple[float, float] | None:
-    """Ends (mm along `axis`) of the record's 6 dB drop length (or loss-level length) on map `m`."""
-    try:
-        region, _, pk = _indication_region(m, rec)
-        if region is None:
-            return None
-        ind = _as_indication(m, rec, region, pk)
-        if rec.get("kind") == "backwall_loss":
-            r = level_length(m, ind, level_fsh=_loss_level_db(rec), axis=axis, edge=edge)
-        else:
-            r = drop_length(m, ind, drop_db=6.0, axis=axis, edge=edge)
-    except (SizingError, ParameterError):
-        return None
-    if r.start_mm is None or r.end_mm is None:
-        return None
-    k = 0 if axis == "scan" else 1
-    return float(r.start_mm[k]), float(r.end_mm[k])
+def length_ends_mm(rec: IndicationRecord, axis: str) -> tuple[float, float] | None:
+    """Positions (mm along `axis`, 'scan' or 'index') of the two ends of the record's measured length."""
+    return rec.length_scan_ends_mm if axis == "scan" else rec.length_index_ends_mm
 
 
 def _size_label(rec: Any) -> str:
@@ -325,8 +271,9 @@ def indication_outlines(indications: Sequence[Mapping[str, Any]] | None, outline
 
     Parameters
     ----------
-    indications : list of dict
-        Records from :func:`ndtmap.size_indications`.
+    indications : list of IndicationRecord
+        Records from :func:`ndtmap.size_indications` or ``run_procedure``; each
+        carries the region it was sized on.
     outline_map : xarray.DataArray (scan, index)
         The map the indications were sized on: an amplitude map in %FSH for
         amplitude indications (outline: the -6 dB region), a back-wall-loss
@@ -346,20 +293,20 @@ def indication_outlines(indications: Sequence[Mapping[str, Any]] | None, outline
     Examples
     --------
     >>> import numpy as np, xarray as xr
+    >>> from ndtmap.indications import size_indications
     >>> a = np.zeros((5, 5)); a[1:3, 1:4] = 80.0
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(5.0), "index": np.arange(5.0)},
     ...                  attrs={"units": "%FSH"})
-    >>> rec = {"id": 1, "kind": "amplitude", "scan_mm": 1.0, "index_mm": 2.0}
-    >>> [p.tolist() for p in indication_outlines([rec], m)[0].polygons]
+    >>> [p.tolist() for p in indication_outlines(size_indications(m, threshold_fsh=20), m)[0].polygons]
     [[[0.5, 0.5], [2.5, 0.5], [2.5, 3.5], [0.5, 3.5]]]
     """
-    recs = checked_records("indications", indications)
+    recs = typed_records("indications", indications)
     om = mg.as_map("outline_map", outline_map)
     om.attrs = dict(outline_map.attrs)
     scan, index = mg.coords_mm(om)
     out = []
     for rec in recs:
-        region, what, pk = _indication_region(om, rec)
+        region, what, pk = _sized_region(om, rec)
         polys = tuple(indication_outline(region, scan, index)) if region is not None else ()
         out.append(IndicationOutline(
             id=int(rec["id"]), kind=str(rec["kind"]), polygons=polys,

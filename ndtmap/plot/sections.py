@@ -17,11 +17,10 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from ndtmap._shared import mapgeom as mg
 from ndtmap.errors import ParameterError, ParameterTypeError
-from ndtmap.plot._common import axis_title, cell_edges, checked_records, colour_range, escape, fmt, new_figure
+from ndtmap.plot._common import axis_title, cell_edges, colour_range, escape, fmt, new_figure, typed_records
 from ndtmap.plot._common import field as rec_field
-from ndtmap.plot.outlines import _drop_ends, _hover
+from ndtmap.plot.outlines import _hover, length_ends_mm
 from ndtmap.plot.style import ACCENTS, INK, MARK_COLOR, MISSING_COLOR, color_scale_for, gate_colour, label_from_attrs
 
 __all__ = ["SectionGate", "section_figure"]
@@ -92,9 +91,9 @@ def _gate_traces(gates: Sequence[SectionGate], gate_order: Sequence[str] | None)
     return traces
 
 
-def _crossing(section_da: xr.DataArray, rec: Any, x: np.ndarray, pos_dim: str, amp: xr.DataArray | None,
-              edge: str) -> tuple[float, tuple[float, float] | None] | None:
-    """Where the section crosses an indication: its peak position along the section and its drop-length ends."""
+def _crossing(section_da: xr.DataArray, rec: Any, x: np.ndarray, pos_dim: str
+              ) -> tuple[float, tuple[float, float] | None] | None:
+    """Where the section crosses an indication: its peak position along the section and its measured length's ends."""
     if pos_dim in ("scan", "index"):
         other = "index" if pos_dim == "scan" else "scan"
         fixed = section_da.attrs.get(f"{other}_mm_used")
@@ -103,7 +102,7 @@ def _crossing(section_da: xr.DataArray, rec: Any, x: np.ndarray, pos_dim: str, a
         lo, hi = rec_field(rec, f"{other}_min_mm"), rec_field(rec, f"{other}_max_mm")
         if fixed is None or lo is None or hi is None or not (float(lo) - 1e-9 <= float(fixed) <= float(hi) + 1e-9):
             return None
-        ends = _drop_ends(amp, rec, pos_dim, edge) if amp is not None else None
+        ends = length_ends_mm(rec, pos_dim)
         return float(rec[f"{pos_dim}_mm"]), ends
     if pos_dim == "distance":
         ss = np.asarray(section_da["scan"].values, dtype=np.float64)
@@ -117,22 +116,19 @@ def _crossing(section_da: xr.DataArray, rec: Any, x: np.ndarray, pos_dim: str, a
     return None
 
 
-def _indication_marks(section_da: xr.DataArray, recs: list[Any], x: np.ndarray, depth: np.ndarray, pos_dim: str,
-                      amplitude_map: xr.DataArray | None, edge: str) -> tuple[list[Any], list[dict[str, Any]]]:
+def _indication_marks(section_da: xr.DataArray, recs: list[Any], x: np.ndarray, depth: np.ndarray, pos_dim: str
+                      ) -> tuple[list[Any], list[dict[str, Any]]]:
     """Marks of the amplitude indications the section crosses: peak marker, 6 dB bracket (traces), label."""
     import plotly.graph_objects as go
 
     traces: list[Any] = []
     notes: list[dict[str, Any]] = []
     span = float(depth[-1] - depth[0]) if depth.size > 1 else 1.0
-    amp = mg.as_map("amplitude_map", amplitude_map) if amplitude_map is not None else None
-    if amp is not None:
-        amp.attrs = dict(amplitude_map.attrs)
     shown: set[str] = set()
     for rec in recs:
         if rec_field(rec, "kind") != "amplitude" or rec_field(rec, "depth_mm") is None:
             continue
-        where = _crossing(section_da, rec, x, pos_dim, amp, edge)
+        where = _crossing(section_da, rec, x, pos_dim)
         if where is None:
             continue
         xpk, ends = where
@@ -165,8 +161,6 @@ def section_figure(
     indications: Sequence[Mapping[str, Any]] | None = None,
     cursor_mm: float | None = None,
     title: str | None = None,
-    amplitude_map: xr.DataArray | None = None,
-    edge: str = "first",
     equal_aspect: bool = False,
     gates: Sequence[SectionGate] = (),
     gate_order: Sequence[str] | None = None,
@@ -182,19 +176,15 @@ def section_figure(
         From :mod:`ndtmap.scans.sections`: ``(scan, time)`` (B-scan), ``(index,
         time)`` (D-scan) or ``(distance, time)`` (polyline) with a ``depth``
         coordinate along ``time``, or ``(depth, x)`` (true geometry).
-    indications : list of dict, optional
+    indications : list of IndicationRecord, optional
         Records from :func:`ndtmap.size_indications`; amplitude indications
         whose detected extent the section crosses are marked at their peak
         position and depth, with a bracket over their 6 dB drop length along
-        the section when `amplitude_map` is given.
+        the section (the ends the record measured).
     cursor_mm : float, optional
         A position along the section to mark (e.g. where an A-scan is shown):
         a dotted line, always the second trace.
     title : str, optional
-    amplitude_map : xarray.DataArray, optional
-        The amplitude map the indications were sized on (for the brackets).
-    edge : {'first', 'outermost'}, default 'first'
-        The walking rule the lengths were measured with.
     equal_aspect : bool, default False
         Draw mm at the same scale on both axes.
     gates : sequence of SectionGate, optional
@@ -222,7 +212,7 @@ def section_figure(
     """
     import plotly.graph_objects as go
 
-    recs = checked_records("indications", indications)
+    recs = typed_records("indications", indications)
     x, depth, z, pos_dim = _section_arrays(section_da)
     units = section_da.attrs.get("units", "%FSH")
     finite = z[np.isfinite(z)]
@@ -238,7 +228,7 @@ def section_figure(
     cursor = go.Scatter(x=[] if c is None else [c, c], y=[] if c is None else [float(depth[0]), float(depth[-1])],
                         mode="lines", line=dict(color=_CURSOR_COLOR, width=1.5, dash="dot"), hoverinfo="skip",
                         showlegend=False, name="A-scan position")
-    marks, notes = _indication_marks(section_da, recs, x, depth, pos_dim, amplitude_map, edge)
+    marks, notes = _indication_marks(section_da, recs, x, depth, pos_dim)
     if c is not None:
         notes.append(dict(x=c, y=1.0, xref="x", yref="paper", yanchor="bottom", text=f"A-scan at {c:.1f} mm",
                           font=dict(size=10, color=INK)))

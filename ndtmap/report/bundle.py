@@ -55,7 +55,7 @@ from ndtmap.report.results import (
     PartReport,
     ReportError,
     ReportResult,
-    largest_indication,
+    largest_summary,
 )
 from ndtmap.report.text import one_line
 from ndtmap.report.writer import BundleWriter, check_output_dir
@@ -307,7 +307,7 @@ def _write_part(item: ReportInput, grid: xr.Dataset, proc: Any, folder: Path, pl
         n_indications=len(analysis.indications),
         n_amplitude=sum(1 for r in analysis.indications if r["kind"] == "amplitude"),
         n_backwall_loss=sum(1 for r in analysis.indications if r["kind"] == "backwall_loss"),
-        largest=largest_indication(analysis.indications),
+        largest=largest_summary(analysis.indications),
         rules_exceeded=tuple(screening.get("exceeded", ())) if screening else (),
         screening=screening.get("overall") if screening else None,
         first_look=bool(proc.first_look),
@@ -341,7 +341,7 @@ def _write_run_documents(run: _Run, items: Sequence[ReportInput], parts: Sequenc
         "ndtmap_version": __version__,
         "parts": [p.summary(root) for p in parts],
         "errors": [{"file": x.source, "reason": x.reason} for x in errors],
-        "largest_indication_by": LARGEST_BY,
+        "largest_summary_by": LARGEST_BY,
         "static_images": bool(run.static.on),
         "notes": list(notes),
         "cautions": cautions,

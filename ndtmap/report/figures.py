@@ -167,8 +167,8 @@ def bscan_figure(analysis: Any, part: str) -> Built:
            f"{why}; {proc.detect} signal, %FSH, depth increasing downwards (mm). Marks: amplitude "
            "indications crossed by the section at their peak depth, brackets over their 6 dB drop "
            "length along the scan axis; dotted line: the position of the A-scan figure.")
-    fig = section_figure(sec, indications=_records(analysis, "amplitude"), amplitude_map=analysis.maps["amplitude"],
-                         cursor_mm=fs, title=title, edge=proc.edge)
+    fig = section_figure(sec, indications=_records(analysis, "amplitude"),
+                         cursor_mm=fs, title=title)
     return [BuiltFigure("bscan", fig, title, cap)], []
 
 
@@ -184,8 +184,8 @@ def dscan_figure(analysis: Any, part: str) -> Built:
     cap = (f"D-scan (A-scans along the index axis) at scan {sec.attrs['scan_mm_used']:.1f} mm, "
            f"{why}; {proc.detect} signal, %FSH, depth increasing downwards (mm). Marks as in the "
            "B-scan, brackets along the index axis.")
-    fig = section_figure(sec, indications=_records(analysis, "amplitude"), amplitude_map=analysis.maps["amplitude"],
-                         cursor_mm=fi, title=title, edge=proc.edge)
+    fig = section_figure(sec, indications=_records(analysis, "amplitude"),
+                         cursor_mm=fi, title=title)
     return [BuiltFigure("dscan", fig, title, cap)], []
 
 

@@ -25,7 +25,7 @@ from ndtmap import CAUTION, __version__
 from ndtmap.grid.schema import grid_attr
 from ndtmap.indications.flags import FLAG_MEANINGS
 from ndtmap.report.figures import FIGURE_SIZES
-from ndtmap.report.results import LARGEST_BY, FigureFile, PartReport, ReportError, largest_indication, relative_path
+from ndtmap.report.results import LARGEST_BY, FigureFile, PartReport, ReportError, largest_summary, relative_path
 from ndtmap.report.text import fmt_number
 
 __all__ = ["ENVIRONMENT", "PartPage", "render_part_page", "render_summary_page"]
@@ -144,7 +144,7 @@ def _first_look(proc: Any) -> dict[str, Any] | None:
 def _summary_rows(analysis: Any) -> list[tuple[str, str]]:
     recs = analysis.indications
     n_amp = sum(1 for r in recs if r["kind"] == "amplitude")
-    largest = largest_indication(recs)
+    largest = largest_summary(recs)
     rows = [
         ("indications", f"{len(recs)} ({n_amp} amplitude, {len(recs) - n_amp} back-wall loss)"),
         ("largest indication", f"#{largest['id']}: {largest['length_mm']:.1f} mm along {largest['axis']} "

@@ -1,29 +1,28 @@
 """What a report run returns: the figures, parts, errors and the run as a whole.
 
 Also the one rule the report uses to name a part's largest indication
-(:func:`largest_indication`, stated as :data:`LARGEST_BY`).
+(:func:`largest_summary`, stated as :data:`LARGEST_BY`).
 """
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-__all__ = ["FigureFile", "PartReport", "ReportError", "ReportResult", "LARGEST_BY", "largest_indication"]
+from ndtmap.indications import IndicationRecord, largest_indication
 
-#: How the largest indication of a part is chosen (stated on the pages and in ``summary.json``).
-LARGEST_BY = "longest 6 dB drop length (the longer of scan and index) of the amplitude indications"
+__all__ = ["FigureFile", "PartReport", "ReportError", "ReportResult", "LARGEST_BY", "largest_summary"]
+
+#: How the largest indication of a part is chosen (stated on the pages and in ``summary.json``); the rule is
+#: :func:`ndtmap.indications.largest_indication`.
+LARGEST_BY = ("longest 6 dB drop length (the longer of scan and index) of the amplitude indications that are not "
+              "repeat echoes")
 
 
-def largest_indication(records: Sequence[Mapping[str, Any]]) -> dict[str, Any] | None:
-    """The amplitude indication with the longest 6 dB drop length, or None.
-
-    Parameters
-    ----------
-    records : sequence of dict
-        Indication records (``kind``, ``id``, ``length_scan_mm``, ``length_index_mm``, ``ers_mm``).
+def largest_summary(records: Sequence[IndicationRecord]) -> dict[str, Any] | None:
+    """The largest indication (:func:`ndtmap.indications.largest_indication`) as ``summary.json`` states it.
 
     Returns
     -------
@@ -32,27 +31,22 @@ def largest_indication(records: Sequence[Mapping[str, Any]]) -> dict[str, Any] |
 
     Examples
     --------
-    >>> recs = [{"id": 1, "kind": "amplitude", "length_scan_mm": 4.0, "length_index_mm": 6.5},
-    ...         {"id": 2, "kind": "backwall_loss", "length_scan_mm": 30.0, "length_index_mm": 30.0}]
-    >>> best = largest_indication(recs)
-    >>> best["id"], best["length_mm"], best["axis"]
-    (1, 6.5, 'index')
-    >>> largest_indication([]) is None
+    >>> import numpy as np, xarray as xr
+    >>> from ndtmap.indications import size_indications
+    >>> a = np.full((20, 20), 2.0); a[5:9, 3:12] = 80.0
+    >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(20.0), "index": np.arange(20.0)})
+    >>> best = largest_summary(size_indications(m, threshold_fsh=20))
+    >>> best["id"], round(best["length_mm"], 1), best["axis"]
+    (1, 9.0, 'index')
+    >>> largest_summary([]) is None
     True
     """
-    best = None
-    for r in records:
-        if r.get("kind") != "amplitude":
-            continue
-        lengths = [v for v in (r.get("length_scan_mm"), r.get("length_index_mm")) if v is not None]
-        if not lengths:
-            continue
-        length = max(lengths)
-        axis = "scan" if r.get("length_scan_mm") == length else "index"
-        if best is None or length > best["length_mm"]:
-            best = {"id": r["id"], "length_mm": float(length), "axis": axis, "ers_mm": r.get("ers_mm"),
-                    "by": LARGEST_BY}
-    return best
+    best = largest_indication(records)
+    if best is None:
+        return None
+    length = best.length_mm
+    axis = "scan" if best.length_scan_mm == length else "index"
+    return {"id": best.id, "length_mm": float(length), "axis": axis, "ers_mm": best.ers_mm, "by": LARGEST_BY}
 
 
 def relative_path(path: Path, root: Path) -> str:

@@ -6,6 +6,8 @@ a scale bar of 1, 2 or 5 times a power of ten (common practice, no source).
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -96,8 +98,11 @@ def test_text_from_files_is_escaped(ring_map):
 
 
 def test_outline_of_a_record_outside_the_map_is_an_error(ring_map):
+    rec = size_indications(ring_map, threshold_fsh=20)[0]
     with pytest.raises(ParameterError, match="outside the map"):
-        map_figure(ring_map, indications=[{"id": 1, "kind": "amplitude", "scan_mm": 99.0, "index_mm": 0.0}])
+        map_figure(ring_map, indications=[replace(rec, scan_mm=99.0)])
+    with pytest.raises(NdtmapError, match="must be an IndicationRecord"):
+        map_figure(ring_map, indications=[{"id": 1, "kind": "amplitude", "scan_mm": 1.0, "index_mm": 0.0}])
     with pytest.raises(NdtmapError, match="indication records"):
         map_figure(ring_map, indications={"id": 1})
     with pytest.raises(NdtmapError, match="has no `kind`"):

@@ -8,12 +8,15 @@ even-odd (ray casting) rule, e.g. J. O'Rourke, Computational Geometry in C, ch. 
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from scipy import ndimage
 
 from ndtmap import size_indications
 from ndtmap.errors import ParameterError
+from ndtmap.indications import LossOptions
 from ndtmap.plot import indication_outline, indication_outlines
 from ndtmap.plot.outlines import merged_outline_traces, outline_traces
 
@@ -76,7 +79,11 @@ def test_outlines_of_records_are_their_sizing_regions(ring_map):
     depth = ring_map.assign_attrs(units="mm", long_name="event depth")
     assert all(not o.polygons for o in indication_outlines(recs, depth))
     with pytest.raises(ParameterError, match="outside the map"):
-        indication_outlines([{"id": 1, "kind": "amplitude", "scan_mm": 99.0, "index_mm": 0.0}], ring_map)
+        indication_outlines([replace(recs[0], scan_mm=99.0)], ring_map)
+    # a record drawn on another map of the same size but not the one it was found on: no outline
+    shifted = ring_map.roll(scan=1, roll_coords=False)
+    moved = replace(recs[0], peak_index=(recs[0].peak_index[0] + 1, recs[0].peak_index[1]))
+    assert not indication_outlines([moved], shifted)[0].polygons
 
 
 def test_loss_outline_encloses_the_positions_at_or_above_the_detection_level(amp_map):
@@ -84,7 +91,9 @@ def test_loss_outline_encloses_the_positions_at_or_above_the_detection_level(amp
     loss[2:5, 3:6] = 9.0
     loss[3, 4] = 14.0
     m = amp_map(loss, np.arange(8.0), np.arange(8.0), units="dB", long_name="back-wall echo loss")
-    rec = {"id": 4, "kind": "backwall_loss", "scan_mm": 3.0, "index_mm": 4.0, "detection_level": "loss >= 6 dB"}
+    quiet = amp_map(np.full((8, 8), 2.0), np.arange(8.0), np.arange(8.0))  # no amplitude indication
+    (rec,) = size_indications(quiet, threshold_fsh=20, loss=LossOptions(6.0, loss_map=m))
+    assert rec.kind == "backwall_loss" and rec.sizing_level_db == 6.0
     (o,) = indication_outlines([rec], m)
     assert o.region == "loss >= 6 dB"
     assert sum(shoelace(p) for p in o.polygons) == pytest.approx(9.0)  # 3 x 3 cells of 1 mm^2

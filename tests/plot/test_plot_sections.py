@@ -24,7 +24,7 @@ def test_section_depth_axis_and_bracket_of_the_6db_length(plate_grid):
     recs = size_indications(amp, threshold_fsh=20.0, depth_map=depth_map(g, gate))
     rec = recs[0]
     sec = b_scan(g, rec["index_mm"])
-    fig = section_figure(sec, indications=recs, amplitude_map=amp, cursor_mm=rec["scan_mm"])
+    fig = section_figure(sec, indications=recs, cursor_mm=rec["scan_mm"])
     heat = fig.data[0]
     # depth d = c t / 2 (pulse echo) along the vertical axis, increasing downwards
     np.testing.assert_allclose(np.asarray(heat.y), STEEL_M_S * 1e-3 * g["time"].values / 2, rtol=1e-12)
@@ -33,11 +33,11 @@ def test_section_depth_axis_and_bracket_of_the_6db_length(plate_grid):
     assert marker.y[0] == pytest.approx(rec["depth_mm"]) and marker.y[0] == pytest.approx(7.4, abs=0.05)
     bracket = [d for d in fig.data if d.name == "6 dB drop length"][0]
     assert max(bracket.x) - min(bracket.x) == pytest.approx(rec["length_scan_mm"], rel=1e-12)
-    dfig = section_figure(d_scan(g, rec["scan_mm"]), indications=recs, amplitude_map=amp)
+    dfig = section_figure(d_scan(g, rec["scan_mm"]), indications=recs)
     dbr = [d for d in dfig.data if d.name == "6 dB drop length"][0]
     assert max(dbr.x) - min(dbr.x) == pytest.approx(rec["length_index_mm"], rel=1e-12)
     # a section that misses the indication marks nothing
-    far = section_figure(b_scan(g, 7.0), indications=recs, amplitude_map=amp)
+    far = section_figure(b_scan(g, 7.0), indications=recs)
     assert not [d for d in far.data if d.name == "indication peak"]
 
 

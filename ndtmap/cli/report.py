@@ -15,16 +15,14 @@ from pathlib import Path
 from typing import Any
 
 from ndtmap._shared.caution import CAUTION
+from ndtmap.cli._library_choices import LibraryChoices
 from ndtmap.cli._scheduler import add_scheduler_argument, with_scheduler
 
 __all__ = ["register", "cmd_report"]
 
-# Copies of ndtmap.procedure.FIGURE_KINDS and ndtmap.report.REPORT_FORMATS, so that building the parser does not
-# import the report machinery; tests/cli/test_parser.py checks that they stay equal.
-#: Figure kinds of ``--figures``.
-FIGURE_KINDS = ("amplitude", "depth", "backwall_loss", "thickness", "bscan", "dscan", "ascan", "dgs")
-#: Static figure formats of ``--formats``.
-REPORT_FORMATS = ("png", "svg", "pdf")
+#: Figure kinds of ``--figures`` and static formats of ``--formats``, read from the library when argparse needs them.
+FIGURE_KINDS = LibraryChoices("ndtmap.procedure", "FIGURE_KINDS")
+REPORT_FORMATS = LibraryChoices("ndtmap.report", "REPORT_FORMATS")
 
 
 def cmd_report(args: argparse.Namespace) -> int:
@@ -67,7 +65,7 @@ def register(subparsers: Any) -> None:
     p.add_argument("-o", "--output", required=True, type=Path, metavar="DIR", help="report folder to write")
     p.add_argument("--procedure", type=Path, metavar="FILE", help="procedure file (TOML) applied to every grid")
     p.add_argument("--figures", nargs="+", choices=FIGURE_KINDS, metavar="KIND",
-                   help=f"figures to include (default: the procedure's list); from {', '.join(FIGURE_KINDS)}")
+                   help="figures to include (default: the procedure's list); from %(choices)s")
     p.add_argument("--formats", nargs="*", choices=REPORT_FORMATS, metavar="FMT",
                    help="static figure files: png svg pdf (default: png svg; none: interactive figures only)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")

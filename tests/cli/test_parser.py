@@ -111,12 +111,18 @@ def test_a_closed_pipe_is_not_an_error(monkeypatch, capsys):
     assert capsys.readouterr().err == ""
 
 
-def test_report_choices_equal_the_library_ones():
+def test_report_choices_are_the_library_ones(capsys):
     from ndtmap.procedure import FIGURE_KINDS
     from ndtmap.report import REPORT_FORMATS
 
-    assert report_command.FIGURE_KINDS == FIGURE_KINDS
-    assert report_command.REPORT_FORMATS == REPORT_FORMATS
+    assert tuple(report_command.FIGURE_KINDS) == FIGURE_KINDS
+    assert tuple(report_command.REPORT_FORMATS) == REPORT_FORMATS
+    with pytest.raises(SystemExit):
+        main(["report", "--help"])
+    assert "from " + ", ".join(FIGURE_KINDS) in " ".join(capsys.readouterr().out.split())
+    with pytest.raises(SystemExit) as stop:
+        main(["report", "g.nc", "-o", "out", "--figures", "volume"])  # not a figure kind
+    assert stop.value.code == EXIT_USAGE and "invalid choice: 'volume'" in capsys.readouterr().err
 
 
 def test_scheduler_option_and_wrapper():

@@ -46,6 +46,15 @@ from ndtmap.grid.schema import grid_attr, validate_grid
 from ndtmap.grid.summary import grid_summary
 from ndtmap.indications.tables import indications_csv
 from ndtmap.io import open_grid
+from ndtmap.plot import export_session, find_chromium, write_plotly_js
+from ndtmap.procedure import (
+    FIGURE_KINDS,
+    Procedure,
+    first_look_procedure,
+    load_procedure,
+    procedure_to_toml,
+    run_procedure,
+)
 from ndtmap.report.figures import BuiltFigure, build_figures, export_bytes
 from ndtmap.report.inputs import ReportInput, collect_inputs, file_sha256, safe_name, unique_name
 from ndtmap.report.pages import GRID_AS_READ, PartPage, render_part_page, render_summary_page
@@ -85,7 +94,6 @@ class _StaticExport:
 
     def start(self, stack: contextlib.ExitStack) -> None:
         """Find Chromium and keep one browser running for the run (entered on `stack`)."""
-        from ndtmap.plot import export_session, find_chromium  # start-up speed, see ndtmap.report.figures
 
         self.on = bool(self.formats)
         if self.on and find_chromium() is None:
@@ -141,7 +149,6 @@ class _Run:
 def _check_arguments(items: Sequence[ReportInput], output_dir: Any, procedure: Any, figures: Any, formats: Any,
                      paths: Sequence[Path]) -> tuple[Path, Any, list[str] | None, list[str]]:
     """The output folder, procedure, figure kinds and formats, checked and normalised."""
-    from ndtmap.procedure import FIGURE_KINDS, Procedure, load_procedure  # start-up speed: gate kernels
 
     if isinstance(output_dir, xr.Dataset) or not isinstance(output_dir, str | os.PathLike):
         raise ParameterTypeError(f"`output_dir` must be a folder path, got {type(output_dir).__name__}")
@@ -174,7 +181,6 @@ def _check_arguments(items: Sequence[ReportInput], output_dir: Any, procedure: A
 
 def _grid_and_procedure(item: ReportInput, run: _Run) -> tuple[xr.Dataset, Any]:
     """The grid of an input and the procedure it is reported with."""
-    from ndtmap.procedure import first_look_procedure  # start-up speed: gate kernels
 
     if item.analysis is not None:
         return item.analysis.grid, item.analysis.procedure
@@ -237,7 +243,6 @@ def _copy_rules(proc: Any, writer: BundleWriter, folder: Path) -> Any:
 def _write_settings(analysis: Any, proc: Any, figures: Sequence[FigureFile], folder: Path,
                     writer: BundleWriter) -> Any:
     """Write ``procedure.toml`` (and the rules beside it) and ``settings.json``; return the procedure saved."""
-    from ndtmap.procedure import procedure_to_toml  # start-up speed: gate kernels
 
     saved = _copy_rules(proc, writer, folder)
     writer.text(folder / "procedure.toml", procedure_to_toml(saved))
@@ -261,7 +266,6 @@ def _write_settings(analysis: Any, proc: Any, figures: Sequence[FigureFile], fol
 def _write_part(item: ReportInput, grid: xr.Dataset, proc: Any, folder: Path, plotly_js: str,
                 run: _Run) -> PartReport:
     """Evaluate one input (unless it is an analysis already) and write its folder."""
-    from ndtmap.procedure import run_procedure  # start-up speed: gate kernels
 
     writer = run.writer
     analysis = item.analysis if item.analysis is not None else run_procedure(grid, proc, source=item.label)
@@ -441,7 +445,6 @@ def write_report(
     ...     (result.exit_status, result.parts[0].part_id, result.parts[0].n_indications == len(analysis.indications))
     (0, 'KFP-PL-2041', True)
     """
-    from ndtmap.plot import write_plotly_js  # start-up speed, see ndtmap.report.figures
 
     t_start = time.perf_counter()
     items, batch, paths = collect_inputs(paths_or_grids)

@@ -20,8 +20,22 @@ from typing import Any
 import numpy as np
 
 from ndtmap.errors import NdtmapError
+from ndtmap.gates import evaluate_gates
 from ndtmap.grid.schema import grid_attr
+from ndtmap.indications import dgs_diagram
+from ndtmap.physics import near_field_length_mm
+from ndtmap.plot import (
+    ascan_at,
+    ascan_figure,
+    dgs_figure,
+    dgs_points,
+    figure_bytes,
+    map_figure,
+    section_figure,
+    thickness_figure,
+)
 from ndtmap.report.text import fmt_number, gate_text, one_line
+from ndtmap.scans import b_scan, d_scan
 
 __all__ = ["FIGURE_SIZES", "FIGURE_BUILDERS", "BuiltFigure", "build_figures", "export_bytes", "dgs_family"]
 
@@ -83,7 +97,6 @@ def _focus(analysis: Any) -> tuple[float, float, str]:
 
 def amplitude_figure(analysis: Any, part: str) -> Built:
     """C-scan of the detection gate's peak amplitude with the -6 dB outlines of the amplitude indications."""
-    from ndtmap.plot import map_figure
 
     det = analysis.procedure.gate(analysis.procedure.detection_gate)
     title = f"{part}: peak amplitude in gate {det.name}"
@@ -98,7 +111,6 @@ def amplitude_figure(analysis: Any, part: str) -> Built:
 
 def depth_figure(analysis: Any, part: str) -> Built:
     """C-scan of the event depth in the detection gate, outlined as the amplitude map."""
-    from ndtmap.plot import map_figure
 
     det = analysis.procedure.gate(analysis.procedure.detection_gate)
     maps = analysis.maps
@@ -112,7 +124,6 @@ def depth_figure(analysis: Any, part: str) -> Built:
 
 def backwall_loss_figure(analysis: Any, part: str) -> Built:
     """C-scan of the back-wall echo loss (dB) with the back-wall-loss indications outlined."""
-    from ndtmap.plot import map_figure
 
     if "backwall_loss" not in analysis.maps:
         return [], ["no back-wall-loss figure: the procedure has no back-wall gate"]
@@ -131,7 +142,6 @@ def backwall_loss_figure(analysis: Any, part: str) -> Built:
 
 def wall_thickness_figure(analysis: Any, part: str) -> Built:
     """Wall thickness from the back-wall echo, the minimum remaining wall marked."""
-    from ndtmap.plot import thickness_figure
 
     bw = _backwall_gate(analysis)
     if "thickness" not in analysis.maps:
@@ -156,8 +166,6 @@ def wall_thickness_figure(analysis: Any, part: str) -> Built:
 
 def bscan_figure(analysis: Any, part: str) -> Built:
     """B-scan (along the scan axis) through the focus position."""
-    from ndtmap.plot import section_figure
-    from ndtmap.scans.sections import b_scan
 
     proc = analysis.procedure
     fs, fi, why = _focus(analysis)
@@ -174,8 +182,6 @@ def bscan_figure(analysis: Any, part: str) -> Built:
 
 def dscan_figure(analysis: Any, part: str) -> Built:
     """D-scan (along the index axis) through the focus position."""
-    from ndtmap.plot import section_figure
-    from ndtmap.scans.sections import d_scan
 
     proc = analysis.procedure
     fs, fi, why = _focus(analysis)
@@ -191,8 +197,6 @@ def dscan_figure(analysis: Any, part: str) -> Built:
 
 def ascan_plot(analysis: Any, part: str) -> Built:
     """The A-scan at the focus position with every gate of the procedure and its event."""
-    from ndtmap.gates.evaluate import evaluate_gates
-    from ndtmap.plot import ascan_at, ascan_figure
 
     proc = analysis.procedure
     grid = analysis.grid
@@ -237,9 +241,6 @@ def dgs_family(probe_mm: float, ers: Sequence[float]) -> list[float]:
 
 def dgs_plot(analysis: Any, part: str) -> Built:
     """The DGS diagram of the probe with the back-wall reference and every indication with an ERS."""
-    from ndtmap.indications.dgs import dgs_diagram
-    from ndtmap.physics.beam import near_field_length_mm
-    from ndtmap.plot import dgs_figure, dgs_points
 
     bw = _backwall_gate(analysis)
     with_ers = [r for r in _records(analysis, "amplitude") if r.get("ers_mm") is not None]
@@ -322,7 +323,6 @@ def build_figures(analysis: Any, kinds: Sequence[str], part: str) -> Built:
 
 def export_bytes(fig: Any, fmt: str, kind: str) -> bytes:
     """PNG, SVG or PDF bytes of a figure at the size of its kind (:data:`FIGURE_SIZES`)."""
-    from ndtmap.plot import figure_bytes
 
     w, h = FIGURE_SIZES.get(kind, (900, 650))
     return figure_bytes(fig, fmt, width=w, height=h)

@@ -18,6 +18,7 @@ import xarray as xr
 
 from ndtmap.errors import FileFormatError, ParameterError, ParameterTypeError
 from ndtmap.io import RAW_SIDECAR_FORMAT
+from ndtmap.procedure import Analysis
 
 __all__ = ["ReportInput", "collect_inputs", "grid_files", "safe_name", "unique_name", "file_sha256"]
 
@@ -156,9 +157,6 @@ def collect_inputs(paths_or_grids: Any) -> tuple[list[ReportInput], bool, list[P
     ParameterError
         For an empty list or a folder without grid files.
     """
-    # start-up speed: the procedure module pulls in the gate kernels
-    from ndtmap.procedure import Analysis
-
     if isinstance(paths_or_grids, xr.Dataset | str | os.PathLike | Analysis):
         given = [paths_or_grids]
     elif isinstance(paths_or_grids, Iterable):

@@ -17,6 +17,7 @@ import pytest
 import ndtmap
 import ndtmap.procedure
 import ndtmap.procedure.run
+import ndtmap.report.bundle
 from ndtmap.errors import ParameterError
 from ndtmap.io import open_grid
 from ndtmap.procedure import load_procedure, run_procedure
@@ -39,6 +40,7 @@ def count_runs(monkeypatch):
 
     monkeypatch.setattr(ndtmap.procedure.run, "run_procedure", counted)
     monkeypatch.setattr(ndtmap.procedure, "run_procedure", counted)
+    monkeypatch.setattr(ndtmap.report.bundle, "run_procedure", counted)
     return calls
 
 

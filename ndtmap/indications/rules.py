@@ -23,6 +23,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+from ndtmap._shared.caution import CAUTION
 from ndtmap._shared.validate import positive_float
 from ndtmap.errors import FileFormatError, ParameterTypeError, ProcedureError
 from ndtmap.indications.detection import Indication
@@ -189,8 +190,6 @@ class ScreeningResult:
 
 
 def _caution() -> str:
-    from ndtmap import CAUTION  # the package's one caution text (imported late: ndtmap/__init__ may import this module)
-
     return CAUTION
 
 

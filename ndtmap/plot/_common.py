@@ -18,6 +18,7 @@ import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
 from ndtmap.errors import ParameterError, ParameterTypeError
+from ndtmap.indications import IndicationRecord
 from ndtmap.plot.style import ndtmap_template
 
 #: Keys every indication record must have to be drawn.
@@ -199,8 +200,6 @@ def typed_records(name: str, indications: Any) -> list[Any]:
     ParameterTypeError
         For a record of another type (a plain dict, say).
     """
-    from ndtmap.indications import IndicationRecord
-
     recs = checked_records(name, indications)
     for k, rec in enumerate(recs):
         if not isinstance(rec, IndicationRecord):

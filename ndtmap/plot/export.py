@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from ndtmap.errors import FileFormatError
+from ndtmap.io import atomic_write_bytes, atomic_write_text
 
 __all__ = [
     "STATIC_FORMATS",
@@ -223,8 +224,6 @@ def write_figure(
         For an unknown extension, a missing folder or a failed export; no
         partial file is left behind.
     """
-    from ndtmap.io import atomic_write_bytes, atomic_write_text
-
     p = Path(path)
     ext = p.suffix.lower().lstrip(".")
     if ext == "html":
@@ -238,8 +237,6 @@ def write_figure(
 def write_plotly_js(folder: str | os.PathLike[str]) -> Path:
     """Write ``plotly.min.js`` (from the installed plotly package) into `folder`, for offline HTML."""
     from plotly.offline import get_plotlyjs
-
-    from ndtmap.io import atomic_write_text
 
     return atomic_write_text(Path(folder) / "plotly.min.js", get_plotlyjs())
 

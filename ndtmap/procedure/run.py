@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from ndtmap._shared.caution import CAUTION
 from ndtmap.errors import NdtmapError
 from ndtmap.gates import Gate, evaluate_gates, gate_chain
 from ndtmap.grid.calibration import calibrate
@@ -40,8 +41,6 @@ __all__ = ["Analysis", "run_procedure", "procedure_from_options"]
 
 
 def _caution() -> str:
-    from ndtmap import CAUTION  # the package's one caution text (imported late: ndtmap/__init__ may import this)
-
     return CAUTION
 
 

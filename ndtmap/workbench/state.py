@@ -54,6 +54,7 @@ import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.arrays import is_lazy
+from ndtmap._shared.caution import CAUTION
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float
 from ndtmap.errors import GateError, NdtmapError, ParameterError, ParameterTypeError, SizingError
 from ndtmap.gates import (
@@ -288,8 +289,6 @@ class WorkbenchState:
     @property
     def caution(self) -> str:
         """The caution every result of ndtmap carries."""
-        from ndtmap import CAUTION  # the package top imports the workbench's neighbours, not the reverse
-
         return CAUTION
 
     @property

@@ -1,6 +1,6 @@
 """The compiled gate kernel: every output of a gate in one read of the window (private).
 
-:func:`gate_kernel` gives exactly what :func:`ndtmap.gates.evaluate._gate_kernel` (the
+:func:`gate_kernel` gives exactly what :func:`ndtmap.gates.kernels.reference_gate_kernel` (the
 numpy reference) gives on the detection signal, bit for bit, but works on the
 recorded samples directly: int16 (and other integer) counts are scaled to
 %FSH one sample at a time, RF data are rectified one sample at a time (``abs``
@@ -483,7 +483,7 @@ def gate_kernel(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """All outputs of one gate from the recorded samples, in one read of the window.
 
-    Equals :func:`ndtmap.gates.evaluate._gate_kernel` applied to the detection signal
+    Equals :func:`ndtmap.gates.kernels.reference_gate_kernel` applied to the detection signal
     of ``samples[..., base:base + length]`` (``|a|`` with `rectify`, the
     counts times `scale` for integer data, float32 throughout), with the
     window ``[i_start, i_end]`` counted from `base` and `t0_us` the time of

@@ -4,7 +4,7 @@ External references: HTML is parsed with the standard library's html.parser (Pyt
 html.parser) and escaping follows html.escape (Python documentation); CSV by the csv module (RFC 4180);
 PNG dimensions from the IHDR chunk (W3C PNG specification, 11.2.2); SVG parsed as XML (W3C SVG 1.1); file
 identity by SHA-256 (FIPS 180-4, hashlib). The truth the example procedures are checked against is the
-simulator's own record of the reflectors (ndtmap.simulate.model.scan_truth); the DGS equivalent size of a
+simulator's own record of the reflectors (ndtmap.simulate.scan_truth); the DGS equivalent size of a
 flat-bottom hole equals its diameter (Krautkramer, Ultrasonic Testing of Materials, DGS chapter, from
 memory), within the model and sampling errors allowed below.
 """

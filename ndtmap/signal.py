@@ -657,7 +657,7 @@ def apply_tcg(grid: xr.Dataset, dac: DacCurve, *, target_fsh: float = 80.0) -> x
         raise ParameterTypeError(f"`dac` must be a DacCurve (from dac_curve), got {type(dac).__name__}")
     target = positive_float("target_fsh", target_fsh)
     pc = part_constants(grid)
-    depth = pc.mm_per_us * (pc.time_us - pc.zero_offset_us) * pc.cos_theta
+    depth = pc.depth_mm(pc.time_us)
     level = dac.level_fsh(depth, outside="extrapolate" if dac.extrapolate else "hold")
     gain = (target / level).astype(np.float32)
     gain_da = xr.DataArray(gain, dims=("time",), coords={"time": grid["time"]})

@@ -362,7 +362,8 @@ class _Evaluator:
             "amplitude_fsh": raw.amplitude.assign_attrs(units="%FSH", long_name=f"{label} peak amplitude"),
             "time_us": raw.time.assign_attrs(units="us", long_name=f"{label} event time"),
             "sound_path_mm": path.assign_attrs(units="mm", long_name=f"{label} sound path"),
-            "depth_mm": (path * pc.cos_theta).assign_attrs(units="mm", long_name=f"{label} event depth"),
+            "depth_mm": pc.depth_mm(raw.time, from_us=t_ref).assign_attrs(units="mm",
+                                                                            long_name=f"{label} event depth"),
             "surface_distance_mm": (path * pc.sin_theta).assign_attrs(
                 units="mm", long_name=f"{label} surface distance from the beam exit point"),
         }

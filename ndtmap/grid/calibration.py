@@ -33,6 +33,7 @@ import xarray as xr
 
 from ndtmap._shared.validate import finite_float, float_in_range
 from ndtmap.errors import CalibrationError, NdtmapError
+from ndtmap.grid.geometry import sound_path_mm
 from ndtmap.grid.provenance import jsonable, with_step
 from ndtmap.grid.schema import check_grid, grid_attr
 
@@ -245,7 +246,7 @@ def thickness_from_echo_spacing(echo_times_us: Sequence[float], velocity_m_s: fl
     25.0
     """
     v = _check_velocity(_positive("velocity_m_s", velocity_m_s, "m/s"), "`velocity_m_s`")
-    return v * 1e-3 * _echo_spacing_us(echo_times_us, echo_numbers) / 2.0
+    return float(sound_path_mm(_echo_spacing_us(echo_times_us, echo_numbers), v))
 
 
 def velocity_from_echo_spacing(echo_times_us: Sequence[float], thickness_mm: float, *,

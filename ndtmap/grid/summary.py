@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 
 from ndtmap.errors import NdtmapError
+from ndtmap.grid.geometry import depth_from_sound_path_mm, sound_path_mm
 from ndtmap.grid.provenance import jsonable, read_provenance
 from ndtmap.grid.schema import REQUIRED_ATTRS, grid_attr, grid_problems, missing_ascans
 
@@ -63,8 +64,9 @@ def grid_summary(ds: Any, *, source: str) -> dict[str, Any]:
         and 0 <= angle < 90
         and isinstance(zero, float)
     ):
-        k = velocity * 1e-3 / 2.0 * math.cos(math.radians(angle))
-        depth = [max(0.0, (out["time_us"][0] - zero) * k), (out["time_us"][1] - zero) * k]
+        first, last = (float(depth_from_sound_path_mm(sound_path_mm(t, velocity, zero_offset_us=zero), angle))
+                       for t in out["time_us"])
+        depth = [max(0.0, first), last]
     out["depth_mm"] = depth
     if "ascan" in getattr(ds, "data_vars", {}):
         a = ds["ascan"]

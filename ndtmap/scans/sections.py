@@ -342,7 +342,7 @@ def angle_beam_section(
     pos = np.asarray(line[along].values, dtype=np.float64)
     data = np.asarray(line.values, dtype=np.float64)  # (positions, time)
     pc = part_constants(grid)
-    s = pc.mm_per_us * (pc.time_us - pc.zero_offset_us)
+    s = pc.sound_path_mm(pc.time_us)
     keep = s >= 0
     if keep.sum() < 2:
         raise ParameterError("the record holds fewer than two samples after pulse entry; check `zero_offset_us`")
@@ -362,7 +362,7 @@ def angle_beam_section(
     reach = [d * float(s[k]) * sin_t for d in (beam_direction,) for k in (0, -1)]
     x_lo = float(pos[0]) + offset + min(reach)
     x_hi = float(pos[-1]) + offset + max(reach)
-    sample_depth = max(pc.mm_per_us * pc.dt_us * cos_t, 1e-6)
+    sample_depth = max(pc.depth_per_us() * pc.dt_us, 1e-6)
     area = max(x_hi - x_lo, sample_depth) * max(z_hi - z_lo, sample_depth)
     default = max(sample_depth, math.sqrt(area / 2e6))
     dx = default if x_step_mm is None else positive_float("x_step_mm", x_step_mm)

@@ -99,7 +99,10 @@ def test_imports_go_down_the_layers():
             continue
         for target, _name, line in imports:
             other = _room(target)
-            if other is None or other == room:
+            if target == "ndtmap":  # the package top re-exports every room: importing it runs back up
+                wrong.append(f"{module}:{line} imports the package top ndtmap (import from the room that defines it)")
+                continue
+            if other == room:
                 continue
             if LAYER_OF[other] >= LAYER_OF[room]:
                 wrong.append(f"{module}:{line} imports {target} ({other} is not below {room})")

@@ -39,7 +39,8 @@ from typing import Any
 import xarray as xr
 from tqdm import tqdm
 
-from ndtmap import CAUTION, __version__
+from ndtmap._shared.caution import CAUTION
+from ndtmap._version import __version__
 from ndtmap.errors import FileFormatError, NdtmapError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import jsonable, read_provenance
 from ndtmap.grid.schema import grid_attr, validate_grid

@@ -21,7 +21,8 @@ from typing import Any
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 from markupsafe import Markup
 
-from ndtmap import CAUTION, __version__
+from ndtmap._shared.caution import CAUTION
+from ndtmap._version import __version__
 from ndtmap.grid.schema import grid_attr
 from ndtmap.indications.flags import FLAG_MEANINGS
 from ndtmap.report.figures import FIGURE_SIZES

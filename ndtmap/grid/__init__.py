@@ -50,10 +50,12 @@ from ndtmap.grid.schema import (
     ascan_in_fsh,
     canonical_grid,
     check_grid,
+    count_missing_ascans,
     grid_attr,
     grid_problems,
     make_grid,
     missing_ascans,
+    nonfinite_along_time,
     replace_ascan,
     time_step_us,
     validate_grid,
@@ -64,6 +66,8 @@ from ndtmap.grid.summary import (
 )
 
 __all__ = [
+    "nonfinite_along_time",
+    "count_missing_ascans",
     "check_grid",
     "replace_ascan",
     "DIMS",

@@ -34,6 +34,8 @@ import xarray as xr
 from ndtmap.errors import GridError, ParameterError, ParameterTypeError
 
 __all__ = [
+    "count_missing_ascans",
+    "nonfinite_along_time",
     "check_grid",
     "replace_ascan",
     "DIMS",
@@ -549,8 +551,9 @@ def missing_ascans(ds: xr.Dataset) -> xr.DataArray:
     [[False, False], [True, False]]
     """
     a = ds["ascan"]
-    if np.issubdtype(a.dtype, np.floating):
-        bad = (~np.isfinite(a)).any("time")
+    if np.issubdtype(a.dtype, np.floating):  # integer counts cannot hold a NaN: nothing to read
+        # dask="allowed": the kernel works on dask arrays as they are, whatever their chunks along time
+        bad = xr.apply_ufunc(nonfinite_along_time, a, input_core_dims=[["time"]], dask="allowed")
     else:
         bad = xr.zeros_like(a.isel(time=0, drop=True), dtype=bool)
     if "missing" in ds.data_vars:
@@ -558,6 +561,48 @@ def missing_ascans(ds: xr.Dataset) -> xr.DataArray:
     bad = bad.rename("missing")
     bad.attrs = {"long_name": "A-scan missing", "units": "1"}
     return bad
+
+
+def nonfinite_along_time(samples: Any) -> Any:
+    """True where an A-scan (the last axis) holds a NaN or infinite sample: the definition of a missing A-scan.
+
+    Works on numpy and dask arrays alike.
+
+    Examples
+    --------
+    >>> nonfinite_along_time(np.array([[1.0, 2.0], [1.0, np.inf]])).tolist()
+    [False, True]
+    """
+    return ~np.isfinite(samples).all(axis=-1)
+
+
+def count_missing_ascans(ds: xr.Dataset) -> int:
+    """The number of missing A-scans (``missing_ascans(ds).sum()``).
+
+    For an in-memory grid the count is made on the arrays themselves,
+    without building an xarray result (so a quick summary, ``ndtmap info``,
+    does not load dask).
+
+    Examples
+    --------
+    >>> a = np.ones((2, 2, 3), dtype=np.float32); a[1, 0, 1] = np.nan
+    >>> g = make_grid(a, scan_mm=[0, 1], index_mm=[0, 1], time_us=[0, 1, 2],
+    ...               velocity_m_s=5920, probe_frequency_mhz=5, probe_diameter_mm=10)
+    >>> count_missing_ascans(g)
+    1
+    """
+    a = ds["ascan"]
+    if a.chunks is not None:
+        return int(missing_ascans(ds).sum().compute())
+    order = [a.get_axis_num(d) for d in ("scan", "index", "time")]
+    if np.issubdtype(a.dtype, np.floating):
+        bad = nonfinite_along_time(np.transpose(np.asarray(a.values), order))
+    else:
+        bad = np.zeros((a.sizes["scan"], a.sizes["index"]), dtype=bool)
+    if "missing" in ds.data_vars:
+        flagged = ds["missing"]
+        bad = bad | np.transpose(np.asarray(flagged.values), [flagged.get_axis_num(d) for d in ("scan", "index")])
+    return int(bad.sum())
 
 
 def ascan_in_fsh(ds: xr.Dataset) -> xr.DataArray:

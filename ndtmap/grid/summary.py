@@ -15,7 +15,7 @@ import numpy as np
 from ndtmap.errors import NdtmapError
 from ndtmap.grid.geometry import depth_from_sound_path_mm, sound_path_mm
 from ndtmap.grid.provenance import jsonable, read_provenance
-from ndtmap.grid.schema import REQUIRED_ATTRS, grid_attr, grid_problems, missing_ascans
+from ndtmap.grid.schema import REQUIRED_ATTRS, count_missing_ascans, grid_attr, grid_problems
 
 __all__ = ["grid_summary", "format_summary"]
 
@@ -75,9 +75,8 @@ def grid_summary(ds: Any, *, source: str) -> dict[str, Any]:
         out["lazy"] = a.chunks is not None
         if not problems:
             try:
-                m = missing_ascans(ds)
-                out["missing_ascans"] = int(m.sum().values)
-                if out["missing_ascans"] == m.size:
+                out["missing_ascans"] = count_missing_ascans(ds)
+                if out["missing_ascans"] == ds.sizes["scan"] * ds.sizes["index"]:
                     problems.append("every A-scan is missing (NaN); the file holds no usable data")
             except Exception as exc:  # noqa: BLE001 - a summary must not fail on odd data
                 problems.append(f"could not read the A-scans: {exc}")

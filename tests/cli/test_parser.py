@@ -141,3 +141,14 @@ def test_python_m_ndtmap_runs_the_command_line():
                            "--json"], capture_output=True, text=True, timeout=120, cwd=ROOT)
     assert proc.returncode == 0 and proc.stderr == ""
     assert json.loads(proc.stdout)["valid"] is True
+
+
+def test_info_on_a_netcdf_grid_loads_neither_dask_arrays_nor_the_processing_chain():
+    # the start-up budget of `ndtmap info` (benchmarks/startup.py): xarray and h5netcdf, not dask.array (about half
+    # a second), scipy, plotly or the gate kernels
+    path = str(sample_path("plate_laminations.nc"))
+    loaded = modules_after(f"from ndtmap.cli import main\nmain(['info', {path!r}, '--json'])")
+    assert "xarray" in loaded and "ndtmap.grid.summary" in loaded
+    assert not {m for m in loaded if m.split(".")[0] in ("scipy", "plotly", "numba", "zarr")}
+    assert "dask.array" not in loaded
+    assert not {m for m in loaded if m.startswith(("ndtmap.gates", "ndtmap.indications", "ndtmap.plot"))}

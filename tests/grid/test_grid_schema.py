@@ -19,6 +19,7 @@ from ndtmap.grid import (
     DIMS,
     ascan_in_fsh,
     canonical_grid,
+    count_missing_ascans,
     grid_attr,
     grid_problems,
     make_grid,
@@ -444,3 +445,22 @@ def test_immersion_attributes_are_checked():
     assert "global attribute `water_velocity_m_s` is 1.483 m/s, outside the plausible range (100, 20000] m/s" in (
         only_problem(g)
     )
+
+
+@pytest.mark.parametrize("lazy", [False, True])
+def test_count_of_missing_ascans_is_the_sum_of_the_mask(lazy):
+    a = np.ones((4, 3, 5), dtype=np.float32)
+    a[1, 2, 3] = np.nan
+    a[3, 0, 0] = np.inf
+    g = make_grid(a, scan_mm=np.arange(4.0), index_mm=np.arange(3.0), time_us=np.arange(5.0),
+                  velocity_m_s=5920, probe_frequency_mhz=5, probe_diameter_mm=10)
+    g = g.assign(missing=(("scan", "index"), np.zeros((4, 3), dtype=bool)))
+    g["missing"][0, 1] = True  # flagged by the acquisition although its samples are finite
+    if lazy:
+        g = g.chunk({"scan": 1, "time": 2})  # chunked along time too: the mask does not need whole A-scans
+    mask = missing_ascans(g)
+    assert mask.values.tolist() == [[False, True, False], [False, False, True], [False, False, False],
+                                    [True, False, False]]
+    assert count_missing_ascans(g) == int(mask.sum()) == 3
+    # dims in another order give the same count
+    assert count_missing_ascans(g.transpose("time", "index", "scan")) == 3

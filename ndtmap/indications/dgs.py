@@ -13,11 +13,16 @@ ratio of a small FBH of diameter ``d`` at sound path ``z`` to a back wall at
 
 so ``d = sqrt(2 lambda z**2 (H_FBH / H_BW) / (pi z_BW))``. Closer to the
 probe the relation does not hold; there (and whenever asked with
-``model="piston"``) the ratio is computed from the circular-piston model of
-:mod:`ndtmap.physics.beam` (:func:`~ndtmap.physics.beam.fbh_echo_relative` and
-:func:`~ndtmap.physics.beam.backwall_echo_relative`, which agree with the far-field
-relation beyond ~3 N); the modelled FBH echo is proportional to ``d**2``,
-so the diameter follows directly.
+``model="piston"``) the echoes come from the circular-piston model: the
+back wall from :func:`~ndtmap.physics.beam.backwall_echo_relative` (Lommel's
+diffraction integral), the hole from
+:func:`~ndtmap.physics.piston_field.disc_echo_relative` (the piston's field
+integrated over the hole's face, the peak of the pulse's envelope over the
+probe spectrum), and the diameter whose modelled echo matches is found
+numerically. Both agree with the far-field relation beyond ~3 N. The
+probe's bandwidth matters inside the near field: a single frequency has
+on-axis zeros (near N/2, N/3, ...) where a small hole would read far too
+large; a pulsed probe fills them in.
 
 Corrections, all in dB:
 
@@ -42,14 +47,21 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
-from scipy import ndimage
+from scipy import ndimage, optimize
 
 from ndtmap._shared import mapgeom as mg
-from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float, positive_int
+from ndtmap._shared.validate import (
+    finite_float,
+    float_in_range,
+    nonnegative_float,
+    one_of,
+    positive_float,
+    positive_int,
+)
 from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import with_step
 from ndtmap.indications.detection import Indication
-from ndtmap.physics import beam
+from ndtmap.physics import beam, piston_field
 from ndtmap.scans import nominal_backwall_fsh
 
 __all__ = [
@@ -159,8 +171,9 @@ def equivalent_fbh_diameter(
         Near-field lengths below which the far-field relation is not used
         (and the ``near_field`` flag is set).
     bandwidth : float, default 0
-        Fractional bandwidth for the piston model (0: a single frequency,
-        whose near-field ripples are deepest).
+        Fractional -6 dB bandwidth of the probe for the piston model (0: a
+        single frequency, whose near-field zeros are deepest; give the
+        probe's, e.g. the grid's ``probe_bandwidth``).
     full_scale_fsh : float, default 100
         Digitiser full scale; a back-wall reading at it is refused.
 
@@ -213,34 +226,59 @@ def equivalent_fbh_diameter(
     notes: list[str] = []
     if model == "auto":
         model = "far-field" if (z >= nf * n and zb >= nf * n) else "piston"
+    bw = float_in_range("bandwidth", bandwidth, 0.0, 1.5)
     if near:
         notes.append(
             f"sound path {z:.1f} mm is inside {nf:g} near-field lengths ({nf * n:.1f} mm): the far-field DGS "
-            "relation does not hold" + ("; the piston-model DGS curve was used" if model == "piston" else "")
+            "relation does not hold" + (
+                f"; the piston model of a hole of finite size was used (bandwidth {bw:g}): an estimate that "
+                "leaves out the real element's apodisation and the hole's tilt" if model == "piston" else "")
         )
+        if model == "piston" and bw == 0:
+            notes.append("single-frequency piston model inside the near field: its on-axis zeros make the size "
+                         "very uncertain; give the probe's bandwidth")
     if zb < nf * n:
         notes.append(f"the back-wall reference at {zb:.1f} mm is inside {nf:g} near-field lengths")
     if model == "far-field":
         d = float(far_field_fbh_diameter(ratio, z, zb, lam))
     else:
-        k = float(
-            beam.fbh_echo_relative(z, 1.0, dprobe, f, c, bandwidth=bandwidth)
-            / beam.backwall_echo_relative(zb, dprobe, f, c, bandwidth=bandwidth)
-        )
-        peak_k = float(np.max(beam.fbh_echo_relative(np.linspace(0.5 * n, 2 * n, 64), 1.0, dprobe, f, c)))
-        if not (k > 1e-3 * peak_k):
+        target = ratio * float(beam.backwall_echo_relative(zb, dprobe, f, c, bandwidth=bw))
+        d = _piston_model_diameter(target, z, dprobe, f, c, bw)
+        if d is None:
             notes.append(
-                f"sound path {z:.1f} mm is near a zero of the modelled on-axis field: no equivalent size "
-                "(use a reference block of known reflectors)"
+                f"the echo is stronger than the modelled echo of a flat-bottom hole as wide as the probe "
+                f"({dprobe:g} mm) at {z:.1f} mm: no equivalent size; size by the drop methods"
             )
             return DgsResult(None, "piston", near, ratio_db, z, zb, n, tuple(notes))
-        d = math.sqrt(ratio / k)
     if d >= 0.5 * dprobe:
         notes.append(
             f"equivalent size {d:.1f} mm is not small compared with the probe ({dprobe:g} mm): the DGS relation "
             "for small reflectors does not apply; size by the drop methods"
         )
     return DgsResult(float(d), model, near, float(ratio_db), z, zb, n, tuple(notes))
+
+
+def _piston_model_diameter(target: float, z: float, dprobe: float, f: float, c: float, bandwidth: float
+                           ) -> float | None:
+    """The hole diameter whose modelled echo at sound path `z` is `target` (re a plane at zero distance).
+
+    The smallest one, found on a grid of diameters up to the probe's and refined by root finding; below
+    the grid the echo grows as the hole's area (the small-hole law). None when even a hole as wide as the
+    probe echoes less.
+    """
+    sizes = np.geomspace(0.02 * dprobe, dprobe, 25)
+
+    def echo(size: float) -> float:
+        return float(piston_field.disc_echo_relative(z, size, dprobe, f, c, bandwidth=bandwidth))
+
+    echoes = np.array([echo(s) for s in sizes])
+    if target <= echoes[0]:
+        return float(sizes[0] * math.sqrt(target / echoes[0]))
+    above = np.flatnonzero(echoes >= target)
+    if above.size == 0:
+        return None
+    i = int(above[0])
+    return float(optimize.brentq(lambda s: math.log(echo(s) / target), sizes[i - 1], sizes[i], xtol=1e-5))
 
 
 def sound_region_mask(
@@ -369,8 +407,12 @@ def dgs_diagram(
     field the curves are universal in (z/N, d/D): back wall
     ``(pi/2) (N/z)`` (-20 dB per decade), FBH ``pi**2 (d/D)**2 (N/z)**2``
     (-40 dB per decade); inside the near field the piston-model curves
-    depend slightly on ``D / lambda`` too. ``gain_*`` variables are the
-    negatives (the gain needed to raise the echo to the 0 dB reference).
+    (the holes' finite size included, see
+    :func:`ndtmap.physics.piston_field.disc_echo_relative`, the model
+    :func:`equivalent_fbh_diameter` inverts) depend on ``D / lambda`` and on
+    the bandwidth too, and are no longer 40 log10 of the diameter apart.
+    ``gain_*`` variables are the negatives (the gain needed to raise the
+    echo to the 0 dB reference).
 
     Parameters
     ----------
@@ -436,7 +478,8 @@ def dgs_diagram(
     bw_ff = 20.0 * np.log10(np.pi * a * a / (2.0 * lam * z)) + att
     with np.errstate(divide="ignore"):
         fbh = np.stack(
-            [20.0 * np.log10(beam.fbh_echo_relative(z, d, dprobe, f, c, bandwidth=bandwidth)) + att for d in sizes]
+            [20.0 * np.log10(piston_field.disc_echo_relative(z, d, dprobe, f, c, bandwidth=bandwidth)) + att
+             for d in sizes]
         )
     fbh_ff = np.stack([20.0 * np.log10(np.pi**2 * a * a * (0.5 * d) ** 2 / (lam * z) ** 2) + att for d in sizes])
     fbh = np.where(np.isfinite(fbh), fbh, np.nan)

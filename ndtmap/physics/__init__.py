@@ -5,6 +5,11 @@
   wall and of a flat-bottomed hole (the DGS relation), for a circular
   single-element probe, with the probe's bandwidth averaged over where it
   matters;
+* :mod:`ndtmap.physics.piston_field`: the piston's field at every point in
+  front of it (the Rayleigh integral reduced to a line integral), the
+  band-averaged pulse-echo sensitivity, beam widths at every depth (near
+  field included), the range of drop lengths a point reflector gives, and the
+  echo of a flat disc of finite size (broadband DGS in the near field);
 * :mod:`ndtmap.physics.materials`: typical sound velocities and densities of
   common materials (:func:`material`), the one table of these values in
   ndtmap. They are recalled handbook figures; a calibration on a reference
@@ -30,6 +35,16 @@ from ndtmap.physics.beam import (
     wavelength_mm,
 )
 from ndtmap.physics.materials import MATERIALS, MaterialData, material
+from ndtmap.physics.piston_field import (
+    FAR_FIELD_LIMIT_N,
+    disc_echo_relative,
+    far_field_limit_mm,
+    piston_pressure,
+    point_reflector_length_range_mm,
+    pulse_echo_beam_width_mm,
+    pulse_echo_beam_widths,
+    pulse_echo_sensitivity,
+)
 
 __all__ = [
     # beam
@@ -45,6 +60,15 @@ __all__ = [
     "fbh_echo_relative",
     "dgs_fbh_backwall_ratio",
     "spectrum_frequencies",
+    # piston field
+    "FAR_FIELD_LIMIT_N",
+    "far_field_limit_mm",
+    "piston_pressure",
+    "pulse_echo_sensitivity",
+    "pulse_echo_beam_widths",
+    "pulse_echo_beam_width_mm",
+    "point_reflector_length_range_mm",
+    "disc_echo_relative",
     # materials
     "MaterialData",
     "MATERIALS",

@@ -22,6 +22,11 @@ infinite plane reflector at zero distance (1.0).
 Where the probe's bandwidth matters (the near-field ripples of real,
 pulsed probes are smoothed), functions take a ``bandwidth`` (fractional
 -6 dB bandwidth of a Gaussian spectrum) and average over the spectrum.
+
+The field off the axis at every distance, and the pulse-echo beam widths
+inside the near field, are in :mod:`ndtmap.physics.piston_field`; the
+far-field width :func:`beam_width_mm` and the lateral model
+:func:`lateral_sensitivity` here are far-field forms.
 """
 
 from __future__ import annotations
@@ -215,12 +220,15 @@ def beam_width_mm(
     *,
     drop_db: float = 6.0,
 ) -> np.ndarray:
-    """Full pulse-echo beam width at a given sound path, in mm.
+    """Far-field pulse-echo beam width ``2 z tan(gamma)`` at a given sound path, in mm (one frequency).
 
-    The far-field width ``2 z tan(gamma)`` is used from the near-field length
-    on; inside the near field the width at ``N`` is used (a floor of about a
-    quarter of the element diameter at -6 dB). This is the same lateral model
-    the simulator uses (:func:`lateral_sensitivity`).
+    Inside the near field the value at ``N`` is returned (about a quarter of
+    the element diameter at -6 dB): that is *not* the beam's width there,
+    which is about as wide as the element, only the least width of the
+    simulator's lateral model (:func:`lateral_sensitivity`), which uses this
+    function for its patch size. For the width of the beam at any depth,
+    near field included and averaged over the probe spectrum, use
+    :func:`ndtmap.physics.piston_field.pulse_echo_beam_width_mm`.
 
     Parameters
     ----------
@@ -262,7 +270,11 @@ def lateral_sensitivity(
     ``(2 J1(x) / x)**2`` with ``x = k a sin(theta)`` and
     ``sin(theta) = r / sqrt(r**2 + max(z, N)**2)``: the far-field directivity,
     with the near-field length as the least distance so that the beam keeps
-    its width at ``N`` inside the near field.
+    its width at ``N`` inside the near field. This is the simulator's
+    approximation, right in the far field only: inside the near field the
+    real beam is much wider (see
+    :func:`ndtmap.physics.piston_field.pulse_echo_sensitivity`, the exact
+    piston field).
 
     Parameters
     ----------

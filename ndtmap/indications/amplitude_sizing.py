@@ -16,7 +16,7 @@ from typing import Any
 import xarray as xr
 
 from ndtmap.indications.detection import Indication
-from ndtmap.indications.flags import is_smaller_than_beam
+from ndtmap.indications.flags import beam_size_flags
 from ndtmap.indications.options import SizingOptions
 from ndtmap.indications.sizing import (
     AreaResult,
@@ -111,23 +111,13 @@ def _drop_sizes(amp: xr.DataArray, ind: Indication, edge: str, flags: list[str],
     return lengths, area
 
 
-def _beam_width_checks(lengths: dict[str, LengthResult], w6: float | None, flags: list[str], notes: list[str]
-                       ) -> None:
-    """``smaller_than_beam`` where a 6 dB length is not larger than the -6 dB beam width; a note when close."""
-    small = [ax for ax in AXES if is_smaller_than_beam(lengths[ax].length_mm, lengths[ax].uncertainty_mm, w6)]
-    if small:
-        flags.append("smaller_than_beam")
-        notes.append(
-            f"6 dB length along {' and '.join(small)} is not larger than the -6 dB beam width ({w6:.2f} mm): "
-            "the drop measured the beam; use the DGS equivalent size"
-        )
-    elif w6 is not None and any(
-        lengths[ax].length_mm is not None and lengths[ax].length_mm < 2.0 * w6 for ax in AXES
-    ):
-        notes.append(
-            f"a 6 dB length is less than twice the -6 dB beam width ({w6:.2f} mm): the beam dominates "
-            "the edge positions"
-        )
+def _beam_width_checks(lengths: dict[str, LengthResult], w6: float | None, flags: list[str], notes: list[str],
+                       *, depth_mm: float, attrs: Mapping[str, Any], options: SizingOptions) -> None:
+    """``smaller_than_beam`` and ``near_field`` of the drop sizes (:func:`ndtmap.indications.flags.beam_size_flags`)."""
+    beam_flags, beam_notes = beam_size_flags(lengths, depth_mm=depth_mm, attrs=attrs, beam_width_6db_mm=w6,
+                                             beam_profile_6db=options.beam_profile_6db)
+    flags.extend(beam_flags)
+    notes.extend(beam_notes)
 
 
 def _twenty_db(amp: xr.DataArray, ind: Indication, depth_mm: float, options: SizingOptions,
@@ -192,13 +182,8 @@ def size_amplitude_indication(
                               notes=tuple(notes))
     w6, n6 = beam_width_at(z, drop_db=6.0, attrs=attrs, beam_profile=options.beam_profile_6db)
     notes.extend(n6)
-    _beam_width_checks(lengths, w6, flags, notes)
+    _beam_width_checks(lengths, w6, flags, notes, depth_mm=z, attrs=attrs, options=options)
     w20, corrected, raw, unc20 = _twenty_db(amp, ind, z, options, flags, notes)
-    if _much_larger_than_beam(lengths, w6) and any(corrected[ax] is not None for ax in AXES):
-        notes.append(
-            "the reflector is much larger than the beam: the beam-corrected 20 dB size is biased low, "
-            "prefer the 6 dB drop"
-        )
     return AmplitudeSizes(
         lengths, area, beam_width_6db_mm=finite_or_none(w6), beam_width_20db_mm=w20, length_20db_mm=corrected,
         length_20db_raw_mm=raw, length_20db_uncertainty_mm=unc20, flags=tuple(flags), notes=tuple(notes),

@@ -20,6 +20,7 @@ from ndtmap.indications.backwall import BackwallReference
 from ndtmap.indications.detection import Indication
 from ndtmap.indications.dgs import equivalent_fbh_diameter
 from ndtmap.indications.options import DgsOptions
+from ndtmap.indications.sizing import ASSUMED_BANDWIDTH
 
 __all__ = ["DgsInputs", "EquivalentSize", "dgs_equivalent_size"]
 
@@ -35,6 +36,10 @@ class DgsInputs:
     probe : dict or None
         ``probe_diameter_mm``, ``probe_frequency_mhz``, ``velocity_m_s``
         (None when any is missing).
+    bandwidth : float
+        The probe's fractional -6 dB bandwidth (``probe_bandwidth``, else
+        :data:`ndtmap.indications.sizing.ASSUMED_BANDWIDTH`, noted): the
+        piston model inside the near field averages over it.
     attenuation_db_per_mm : float
         One-way attenuation (the option, else the map's attribute, else 0).
     beam_angle_rad : float
@@ -48,18 +53,24 @@ class DgsInputs:
     beam_angle_rad: float
     full_scale_fsh: float
     options: DgsOptions
+    bandwidth: float = ASSUMED_BANDWIDTH
+    bandwidth_assumed: bool = True
 
     @classmethod
     def from_attrs(cls, attrs: Mapping[str, Any], options: DgsOptions) -> DgsInputs:
         """Read the probe, attenuation, beam angle and full scale from a map's attributes."""
         probe = {k: mg.map_attr(attrs, k) for k in _PROBE_KEYS}
         alpha = options.attenuation_db_per_mm
+        bw = mg.map_attr(attrs, "probe_bandwidth")
+        usable = bw is not None and 0.0 <= bw <= 1.5
         return cls(
             probe=probe if all(v is not None for v in probe.values()) else None,
             attenuation_db_per_mm=alpha if alpha is not None else mg.map_attr(attrs, "attenuation_db_per_mm", 0.0),
             beam_angle_rad=math.radians(mg.map_attr(attrs, "beam_angle_deg", 0.0) or 0.0),
             full_scale_fsh=mg.map_attr(attrs, "digitiser_full_scale_fsh", 100.0),
             options=options,
+            bandwidth=float(bw) if usable else ASSUMED_BANDWIDTH,
+            bandwidth_assumed=not usable,
         )
 
 
@@ -104,8 +115,9 @@ def dgs_equivalent_size(
     Returns
     -------
     EquivalentSize
-        With the ``near_field`` flag where the piston model was used inside
-        the near field.
+        With the ``near_field`` flag where the size was found inside 3
+        near-field lengths (by the broadband piston model of a hole of finite
+        size, unless the far-field relation was asked for).
     """
     z = ind.depth_mm
     if backwall.level_fsh is None:
@@ -135,8 +147,12 @@ def dgs_equivalent_size(
         backwall_gain_reduction_db=opts.backwall_gain_reduction_db,
         model=opts.model,
         full_scale_fsh=inputs.full_scale_fsh,
+        bandwidth=inputs.bandwidth,
     )
     notes = list(res.notes)
+    if res.method == "piston" and inputs.bandwidth_assumed:
+        notes.append(f"the map carries no usable probe_bandwidth: the DGS piston model assumes "
+                     f"{ASSUMED_BANDWIDTH:g}")
     if inputs.beam_angle_rad > 0:
         notes.append("DGS with an angle beam: the back-wall reference of a straight-beam relation was used; "
                      "use a reference block for angle-beam DGS")

@@ -11,8 +11,11 @@ Rules used here (each also stated in the function that applies it):
     default 100) within 0.1 %: the true peak is unknown, so every drop is
     measured from a wrong reference and the DGS size is a lower bound.
 ``smaller_than_beam``
-    The 6 dB drop length along the scan or the index axis is not larger than
-    the -6 dB pulse-echo beam width at the indication's sound path plus the
+    The 6 dB drop length along the scan or the index axis lies within the
+    range of 6 dB lengths that a point reflector gives at the indication's
+    sound path (from the band-averaged piston model with the probe's
+    bandwidth, near field included: see
+    :func:`ndtmap.indications.sizing.point_reflector_range_at`), within the
     length's own uncertainty: the drop measured the beam, not the reflector.
 ``at_scan_edge``
     The detected region or a sizing line or region reaches the boundary of
@@ -24,7 +27,11 @@ Rules used here (each also stated in the function that applies it):
     back-wall multiple, k = 2, 3).
 ``near_field``
     The sound path is shorter than 3 near-field lengths, where the far-field
-    DGS relation does not hold (see :mod:`ndtmap.indications.dgs`).
+    relations do not hold, and a size rests on the beam there: a 6 dB length
+    at or near the beam width (not above twice the -6 dB beam width), hence
+    also a beam-corrected 20 dB length (given only along such lines), or the
+    DGS size (see :mod:`ndtmap.indications.dgs`). Those sizes come from the
+    near-field piston model: estimates.
 ``low_snr``
     The peak is less than `min_snr_db` (default 6 dB) above the noise level
     of the map, taken as the median amplitude of the valid positions outside
@@ -44,7 +51,8 @@ Rules used here (each also stated in the function that applies it):
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -54,12 +62,14 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.validate import nonnegative_float, positive_float
 from ndtmap.errors import ParameterTypeError
 from ndtmap.indications.detection import Indication
+from ndtmap.indications.sizing import LengthResult, ProbeBeam, point_reflector_range_at
 
 __all__ = [
     "FLAG_MEANINGS",
     "FLAGS",
     "is_saturated",
     "is_smaller_than_beam",
+    "beam_size_flags",
     "noise_level_fsh",
     "is_low_snr",
     "repeat_echo_notes",
@@ -72,14 +82,15 @@ __all__ = [
 FLAG_MEANINGS: dict[str, str] = {
     "saturated": "peak at 100 %FSH or the digitiser full scale: the true peak is unknown, drop sizing is invalid "
     "and the DGS size a lower bound; rescan at lower gain",
-    "smaller_than_beam": "6 dB drop length not larger than the -6 dB beam width at that depth: the drop measured "
-    "the beam, report the DGS equivalent size instead",
+    "smaller_than_beam": "6 dB drop length within the range a point reflector gives at that depth (piston "
+    "model over the probe's band): the drop measured the beam, report the DGS equivalent size instead",
     "at_scan_edge": "the indication or its sizing reaches the edge of the scanned area: lengths and areas are lower "
     "bounds",
     "repeat_echo": "depth about 2 or 3 times that of a stronger overlapping indication or of the back wall: "
     "probably a repeat (multiple) echo, not a separate reflector",
-    "near_field": "inside about 3 near-field lengths: the far-field DGS relation does not hold, the piston-model "
-    "DGS curve was used and the equivalent size is less certain",
+    "near_field": "inside 3 near-field lengths, where the far-field relations do not hold, with a size resting "
+    "on the beam (6 dB length near the beam width, beam-corrected 20 dB length, DGS size): it comes from the "
+    "near-field piston model and is less certain",
     "low_snr": "peak less than 6 dB above the noise level of the map: may be noise",
     "data_gap": "missing A-scans inside or next to the sized region or on a sizing line: sizes may be wrong there",
     "beam_limited_20db": "20 dB drop length not larger than the -20 dB beam width: no beam-corrected 20 dB size",
@@ -115,7 +126,13 @@ def is_saturated(peak_fsh: float | None, *, full_scale_fsh: float = 100.0, rtol:
 
 
 def is_smaller_than_beam(length_mm: float | None, uncertainty_mm: float | None, beam_width_mm: float | None) -> bool:
-    """True when a 6 dB length is not larger than the beam width (within its uncertainty).
+    """True when a 6 dB length is not larger than `beam_width_mm` (within its uncertainty).
+
+    Give as `beam_width_mm` the largest 6 dB length a point reflector gives
+    at that depth (the upper end of
+    :func:`ndtmap.indications.sizing.point_reflector_range_at`), as
+    :func:`beam_size_flags` does: a length up to it cannot be told from a
+    point reflector's.
 
     Examples
     --------
@@ -125,6 +142,81 @@ def is_smaller_than_beam(length_mm: float | None, uncertainty_mm: float | None, 
     if length_mm is None or beam_width_mm is None:
         return False
     return bool(length_mm <= beam_width_mm + (uncertainty_mm or 0.0))
+
+
+def _near_beam_axes(lengths: Mapping[str, LengthResult], w6: float | None) -> list[str]:
+    """The axes whose 6 dB length is not above twice the -6 dB beam width (the size rests on the beam)."""
+    if w6 is None:
+        return []
+    return [ax for ax, r in lengths.items() if r.length_mm is not None and r.length_mm <= 2.0 * w6]
+
+
+def beam_size_flags(
+    lengths: Mapping[str, LengthResult],
+    *,
+    depth_mm: float,
+    attrs: Mapping[str, Any],
+    beam_width_6db_mm: float | None,
+    beam_profile_6db: Any = None,
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """``smaller_than_beam`` and ``near_field`` of the drop sizes of one indication, with their notes.
+
+    * ``smaller_than_beam``: a 6 dB length within the range that a point
+      reflector gives at that depth (:func:`ndtmap.indications.sizing.point_reflector_range_at`),
+      within its own uncertainty;
+    * ``near_field``: the sound path is shorter than 3 near-field lengths and
+      a 6 dB length is not above twice the -6 dB beam width (it, and the
+      beam-corrected 20 dB length along it, rest on the near-field beam).
+      The DGS size adds its own ``near_field``
+      (:mod:`ndtmap.indications.equivalent_size`).
+
+    Parameters
+    ----------
+    lengths : mapping of axis to LengthResult
+        The 6 dB drop lengths (``'scan'``, ``'index'``).
+    depth_mm : float
+        Depth of the indication, mm.
+    attrs : mapping
+        The map's attributes (probe, ``probe_bandwidth``, ``beam_angle_deg``).
+    beam_width_6db_mm : float or None
+        The -6 dB beam width at that depth (:func:`ndtmap.indications.sizing.beam_width_at`).
+    beam_profile_6db : mapping or (depths, widths), optional
+        A measured -6 dB beam profile (scales the model's range).
+
+    Returns
+    -------
+    (flags, notes) : tuple of tuple of str
+    """
+    flags: list[str] = []
+    notes: list[str] = []
+    w6 = beam_width_6db_mm
+    rng, rnotes = point_reflector_range_at(depth_mm, drop_db=6.0, attrs=attrs, beam_profile=beam_profile_6db)
+    notes.extend(n for n in rnotes if n.startswith("the range"))
+    high = rng[1] if rng is not None else w6
+    small = [ax for ax, r in lengths.items() if is_smaller_than_beam(r.length_mm, r.uncertainty_mm, high)]
+    if small:
+        flags.append("smaller_than_beam")
+        where = f" ({rng[0]:.1f} to {rng[1]:.1f} mm)" if rng is not None else f" (the beam width {high:.2f} mm)"
+        notes.append(
+            f"6 dB length along {' and '.join(small)} is within the range a point reflector gives at this "
+            f"depth{where}: the drop measured the beam; use the DGS equivalent size"
+        )
+    elif w6 is not None and _near_beam_axes(lengths, w6):
+        notes.append(
+            f"a 6 dB length is less than twice the -6 dB beam width ({w6:.2f} mm): the beam dominates "
+            "the edge positions"
+        )
+    probe = ProbeBeam.from_attrs(attrs)
+    near_axes = _near_beam_axes(lengths, w6)
+    if not isinstance(probe, str) and near_axes and probe.sound_path_mm(depth_mm) < probe.far_field_limit_mm():
+        flags.append("near_field")
+        notes.append(
+            f"sound path {probe.sound_path_mm(depth_mm):.1f} mm is inside 3 near-field lengths "
+            f"({probe.far_field_limit_mm():.1f} mm) and the size along {' and '.join(near_axes)} rests on the "
+            "beam: beam widths there come from the near-field piston model (an estimate; a real element's "
+            "near field is smoother than a uniform piston's)"
+        )
+    return tuple(flags), tuple(notes)
 
 
 def noise_level_fsh(

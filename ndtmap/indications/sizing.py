@@ -48,20 +48,37 @@ the two ends are added (a worst-case bound, not a standard deviation). The
 beam is not in this number: where the beam width is comparable to the size,
 the result notes it (see :mod:`ndtmap.indications.flags`).
 
+Beam widths
+-----------
+:func:`beam_width_at` gives the pulse-echo beam width at the depth of an
+indication from the band-averaged piston model at that sound path, near
+field included (:func:`ndtmap.physics.piston_field.pulse_echo_beam_width_mm`,
+with the map's ``probe_bandwidth``), or from a measured beam profile (a
+table of depth -> width). :func:`point_reflector_range_at` gives the range
+of drop lengths a point reflector can produce there (the echo's spectrum
+anywhere in the probe's -6 dB band, near-field rings included), which the
+``smaller_than_beam`` flag uses.
+
 20 dB drop with beam correction
 -------------------------------
 As described in general terms in ISO 16827, the 20 dB drop length is
 corrected by subtracting the -20 dB beam width at the sound path of the
-indication (from :func:`ndtmap.physics.beam.beam_width_mm` with ``drop_db=20``, or
-from a measured beam profile, a table of depth -> width). A corrected value
-that is not larger than the measurement uncertainty is reported as "not
-larger than the beam" (``not_larger_than_beam=True``, ``length_mm=None``),
-never as a negative number. The correction assumes that the echo falls by
-20 dB when the -20 dB edge of the beam reaches the reflector edge, which is
-exact for point-like edges; for planar reflectors much larger than the beam
-it undersizes (with the area-integrated piston beam model by roughly 0.15 to
+indication. A corrected value that is not larger than its uncertainty is
+reported as "not larger than the beam" (``not_larger_than_beam=True``,
+``length_mm=None``), never as a negative number. The correction assumes
+that the echo falls by 20 dB when the -20 dB edge of the beam reaches the
+reflector edge, which is exact for edges smaller than the beam; where the
+reflector extends beyond the beam along the line (its 6 dB length above
+twice the -6 dB beam width: a plate, the long axis of an elongated
+reflector) the echo falls by 20 dB before that and the correction would
+undersize it (with the area-integrated piston beam model by roughly 0.15 to
 0.45 of the -20 dB beam width, depending on how far out the beam's side
-lobes reach): for those, use the 6 dB drop.
+lobes reach): no corrected length is given there
+(``extends_beyond_beam=True``); the 6 dB length is the size along that line.
+The uncertainty of a corrected length is the sampling of the drop length
+plus half the spread of the beam width over the probe's band: an estimate,
+which leaves out the probe's tolerances, the reflector's shape and tilt and
+side lobes.
 
 -6 dB area
 ----------
@@ -84,7 +101,7 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.validate import finite_float, one_of, positive_float
 from ndtmap.errors import ParameterError, ParameterTypeError, SizingError
 from ndtmap.indications.detection import Indication, reference_map
-from ndtmap.physics import beam
+from ndtmap.physics import beam, piston_field
 
 __all__ = [
     "LengthResult",
@@ -96,6 +113,9 @@ __all__ = [
     "level_area",
     "beam_corrected_length",
     "beam_width_at",
+    "point_reflector_range_at",
+    "ProbeBeam",
+    "ASSUMED_BANDWIDTH",
     "drop_factor",
 ]
 
@@ -194,11 +214,15 @@ class BeamCorrectedLength:
         ``raw.length_mm - beam_width_mm``; None when it is not larger than the
         uncertainty (see `not_larger_than_beam`) or cannot be computed.
     uncertainty_mm : float or None
-        The raw length's uncertainty (the beam-width model adds its own).
+        The raw length's sampling uncertainty plus half the spread of the
+        beam width over the probe's band (an estimate, not a bound).
     not_larger_than_beam : bool
         The corrected value is not larger than its uncertainty.
     notes : tuple of str
         Remarks.
+    extends_beyond_beam : bool
+        Along this line the reflector's 6 dB length is above twice the
+        -6 dB beam width: the correction would undersize it, none is given.
     """
 
     raw: LengthResult
@@ -207,6 +231,7 @@ class BeamCorrectedLength:
     uncertainty_mm: float | None
     not_larger_than_beam: bool
     notes: tuple[str, ...] = ()
+    extends_beyond_beam: bool = False
 
 
 # --------------------------------------------------------------------------- checks
@@ -707,6 +732,81 @@ def _profile_table(beam_profile: Any) -> tuple[np.ndarray, np.ndarray]:
     return z, w
 
 
+#: Fractional bandwidth assumed when a map does not carry ``probe_bandwidth`` (a broadband contact probe).
+ASSUMED_BANDWIDTH = 0.5
+
+
+@dataclass(frozen=True)
+class ProbeBeam:
+    """The probe and material of a map, as the beam model needs them, with the remarks on what was assumed.
+
+    Attributes
+    ----------
+    diameter_mm, frequency_mhz, velocity_m_s : float
+    bandwidth : float
+        Fractional -6 dB bandwidth (the map's ``probe_bandwidth``, else :data:`ASSUMED_BANDWIDTH`).
+    beam_angle_deg : float
+    notes : tuple of str
+        E.g. that the bandwidth was assumed.
+    """
+
+    diameter_mm: float
+    frequency_mhz: float
+    velocity_m_s: float
+    bandwidth: float
+    beam_angle_deg: float
+    notes: tuple[str, ...] = ()
+
+    @classmethod
+    def from_attrs(cls, attrs: Mapping[str, Any] | None) -> ProbeBeam | str:
+        """The probe of a map's attributes, or the reason there is none (a note)."""
+        attrs = dict(attrs or {})
+        get = {k: mg.map_attr(attrs, k) for k in ("probe_diameter_mm", "probe_frequency_mhz", "velocity_m_s")}
+        need = [k for k, v in get.items() if v is None or v <= 0]
+        if need:
+            return f"no beam width: the map lacks {', '.join(need)} and no `beam_profile` was given"
+        bw = mg.map_attr(attrs, "probe_bandwidth")
+        notes: tuple[str, ...] = ()
+        if bw is None or not 0.0 <= bw <= 1.5:
+            notes = (f"the map carries no usable probe_bandwidth: the beam model assumes {ASSUMED_BANDWIDTH:g}",)
+            bw = ASSUMED_BANDWIDTH
+        return cls(get["probe_diameter_mm"], get["probe_frequency_mhz"], get["velocity_m_s"], float(bw),
+                   float(mg.map_attr(attrs, "beam_angle_deg", 0.0) or 0.0), notes)
+
+    def sound_path_mm(self, depth_mm: float) -> float:
+        """The sound path to a depth along the beam, mm."""
+        return depth_mm / math.cos(math.radians(self.beam_angle_deg))
+
+    def near_field_length_mm(self) -> float:
+        """The probe's near-field length N in the material, mm."""
+        return beam.near_field_length_mm(self.diameter_mm, self.frequency_mhz, self.velocity_m_s)
+
+    def far_field_limit_mm(self) -> float:
+        """The sound path from which the far-field relations hold (3 N), mm."""
+        return piston_field.far_field_limit_mm(self.diameter_mm, self.frequency_mhz, self.velocity_m_s)
+
+    def width_mm(self, depth_mm: float, drop_db: float) -> float:
+        """Band-averaged pulse-echo beam width at a depth (the outer width, near field included), mm."""
+        return float(piston_field.pulse_echo_beam_width_mm(
+            self.sound_path_mm(depth_mm), self.diameter_mm, self.frequency_mhz, self.velocity_m_s,
+            bandwidth=self.bandwidth, drop_db=drop_db))
+
+    def point_range_mm(self, depth_mm: float, drop_db: float) -> tuple[float, float]:
+        """The drop lengths a point reflector can give at a depth (see ``point_reflector_length_range_mm``)."""
+        return piston_field.point_reflector_length_range_mm(
+            self.sound_path_mm(depth_mm), self.diameter_mm, self.frequency_mhz, self.velocity_m_s,
+            bandwidth=self.bandwidth, drop_db=drop_db)
+
+
+def _angle_note(probe: ProbeBeam, depth_mm: float) -> tuple[str, ...]:
+    if probe.beam_angle_deg <= 0:
+        return ()
+    return (
+        f"beam width at sound path {probe.sound_path_mm(depth_mm):.1f} mm, perpendicular to the beam axis "
+        f"({probe.beam_angle_deg:g} deg); give a measured `beam_profile` for the footprint in the plane of incidence",
+    )
+
+
 def beam_width_at(
     depth_mm: float,
     *,
@@ -715,6 +815,11 @@ def beam_width_at(
     beam_profile: Any = None,
 ) -> tuple[float | None, tuple[str, ...]]:
     """Pulse-echo beam width at the depth of an indication, with remarks.
+
+    From a measured `beam_profile` when given, else from the band-averaged
+    piston model at that sound path, near field included
+    (:func:`ndtmap.physics.piston_field.pulse_echo_beam_width_mm`, with the
+    map's ``probe_bandwidth``; 0.5 assumed, and noted, when it is missing).
 
     Parameters
     ----------
@@ -725,7 +830,7 @@ def beam_width_at(
         Edge drop defining the width (6 or 20).
     attrs : mapping, optional
         The map's attributes: ``probe_diameter_mm``, ``probe_frequency_mhz``,
-        ``velocity_m_s``, ``beam_angle_deg``.
+        ``velocity_m_s``, ``probe_bandwidth``, ``beam_angle_deg``.
     beam_profile : mapping or (depths, widths), optional
         Measured beam widths by depth (mm); used instead of the model,
         interpolated linearly and held constant beyond its ends (noted).
@@ -738,10 +843,14 @@ def beam_width_at(
 
     Examples
     --------
-    >>> w, _ = beam_width_at(100.0, drop_db=6, attrs={"probe_diameter_mm": 10,
-    ...     "probe_frequency_mhz": 5, "velocity_m_s": 5920, "beam_angle_deg": 0})
-    >>> round(w, 2)
+    >>> w, _ = beam_width_at(100.0, drop_db=6, attrs={"probe_diameter_mm": 10, "probe_frequency_mhz": 5,
+    ...     "velocity_m_s": 5920, "probe_bandwidth": 0.0, "beam_angle_deg": 0})
+    >>> round(w, 2)  # one frequency, far field: 2 z tan(asin(0.514 lambda / D))
     12.19
+    >>> w, notes = beam_width_at(12.7, drop_db=6, attrs={"probe_diameter_mm": 10, "probe_frequency_mhz": 5,
+    ...     "velocity_m_s": 5920, "probe_bandwidth": 0.6})
+    >>> round(w, 1), notes  # at 0.6 near-field lengths the beam is about as wide as 2/3 of the element
+    (6.5, ())
     """
     z = finite_float("depth_mm", depth_mm)
     if beam_profile is not None:
@@ -753,25 +862,101 @@ def beam_width_at(
                 "the width at its nearest end is used",
             )
         return float(np.interp(z, zt, wt)), notes
-    attrs = dict(attrs or {})
-    get = {k: mg.map_attr(attrs, k) for k in ("probe_diameter_mm", "probe_frequency_mhz", "velocity_m_s",
-                                              "beam_angle_deg")}
-    need = [k for k in ("probe_diameter_mm", "probe_frequency_mhz", "velocity_m_s") if get[k] is None]
-    if need:
-        return None, (f"no beam width: the map lacks {', '.join(need)} and no `beam_profile` was given",)
-    theta = get["beam_angle_deg"] or 0.0
-    path = z / math.cos(math.radians(theta))
-    width = float(
-        beam.beam_width_mm(path, get["probe_diameter_mm"], get["probe_frequency_mhz"], get["velocity_m_s"],
-                           drop_db=drop_db)
+    probe = ProbeBeam.from_attrs(attrs)
+    if isinstance(probe, str):
+        return None, (probe,)
+    if z <= 0:
+        return None, (f"no beam width at depth {z:g} mm",)
+    return probe.width_mm(z, float(drop_db)), probe.notes + _angle_note(probe, z)
+
+
+def point_reflector_range_at(
+    depth_mm: float,
+    *,
+    drop_db: float = 6.0,
+    attrs: Mapping[str, Any] | None = None,
+    beam_profile: Any = None,
+) -> tuple[tuple[float, float] | None, tuple[str, ...]]:
+    """The range of `drop_db` drop lengths a point reflector gives at the depth of an indication, mm.
+
+    From the band-averaged piston model
+    (:func:`ndtmap.physics.piston_field.point_reflector_length_range_mm`: the
+    echo's spectrum anywhere in the probe's -6 dB band, near-field rings
+    included). With a measured `beam_profile` the measured width is taken as
+    the model's own width and the range scaled with it (when the map carries
+    the probe), else the range is the measured width alone (noted).
+
+    Parameters
+    ----------
+    depth_mm : float
+        Depth of the indication, mm.
+    drop_db : float, default 6
+        The drop of the length.
+    attrs : mapping, optional
+        The map's attributes (see :func:`beam_width_at`).
+    beam_profile : mapping or (depths, widths), optional
+        Measured beam widths at this drop by depth, mm.
+
+    Returns
+    -------
+    range_mm : (low, high) or None
+        None when nothing is known of the beam (noted).
+    notes : tuple of str
+
+    Examples
+    --------
+    >>> attrs = {"probe_diameter_mm": 10, "probe_frequency_mhz": 5, "velocity_m_s": 5920, "probe_bandwidth": 0.6}
+    >>> (lo, hi), _ = point_reflector_range_at(100.0, attrs=attrs)
+    >>> round(lo, 1), round(hi, 1)
+    (8.5, 15.7)
+    """
+    z = finite_float("depth_mm", depth_mm)
+    probe = ProbeBeam.from_attrs(attrs)
+    if beam_profile is not None:
+        measured, notes = beam_width_at(z, drop_db=drop_db, beam_profile=beam_profile)
+        if isinstance(probe, str) or z <= 0:
+            return (measured, measured), notes + (
+                "the range of lengths a point reflector gives is taken as the measured beam width alone (the map "
+                "lacks the probe for the model's range)",)
+        lo, hi = probe.point_range_mm(z, float(drop_db))
+        model = probe.width_mm(z, float(drop_db))
+        return (measured * lo / model, measured * hi / model), notes
+    if isinstance(probe, str):
+        return None, (probe.replace("no beam width", "no point-reflector range"),)
+    if z <= 0:
+        return None, (f"no point-reflector range at depth {z:g} mm",)
+    return probe.point_range_mm(z, float(drop_db)), probe.notes
+def _extends_beyond_beam(
+    amp: xr.DataArray, ind: Indication, z: float, beam_profile_6db: Any, **line: Any
+) -> tuple[bool, str | None]:
+    """Whether the reflector's 6 dB length along the line is above twice the -6 dB beam width, with a note."""
+    w6, _ = beam_width_at(z, drop_db=6.0, attrs=amp.attrs, beam_profile=beam_profile_6db)
+    if w6 is None:
+        return False, None
+    l6 = drop_length(amp, ind, drop_db=6.0, **line).length_mm
+    if l6 is None or l6 <= 2.0 * w6:
+        return False, None
+    return True, (
+        f"along {line.get('axis') if line.get('line') is None else 'the line'} the reflector extends beyond the beam "
+        f"(6 dB length {l6:.1f} mm, more than twice the -6 dB beam width {w6:.1f} mm): the 20 dB beam correction, "
+        "made for edges smaller than the beam, would undersize it there (by roughly 0.15 to 0.45 of the -20 dB "
+        "beam width); no beam-corrected 20 dB length, the 6 dB length is the size along it"
     )
-    notes = ()
-    if theta > 0:
-        notes = (
-            f"beam width at sound path {path:.1f} mm, perpendicular to the beam axis "
-            f"({theta:g} deg); give a measured `beam_profile` for the footprint in the plane of incidence",
-        )
-    return width, notes
+
+
+def _width_spread(z: float, drop_db: float, attrs: Mapping[str, Any], beam_profile: Any
+                  ) -> tuple[float, str]:
+    """Half the spread of the beam width over the probe's band (an estimate of the model's error), with a note."""
+    rng, _ = point_reflector_range_at(z, drop_db=drop_db, attrs=attrs, beam_profile=beam_profile)
+    spread = 0.0 if rng is None else 0.5 * (rng[1] - rng[0])
+    if beam_profile is not None and spread == 0.0:
+        return 0.0, (f"{drop_db:g} dB beam-corrected lengths: the uncertainty is the sampling of the measured "
+                     "length only; the measured beam profile's own error is not in it")
+    return spread, (
+        f"{drop_db:g} dB beam-corrected lengths: the uncertainty is the sampling of the measured length plus half "
+        "the spread of the beam width over the probe's band, an estimate, not a bound; it leaves out the probe's "
+        "tolerances, the reflector's shape and tilt, and side lobes"
+    )
 
 
 def beam_corrected_length(
@@ -785,15 +970,25 @@ def beam_corrected_length(
     line: Any = None,
     edge: str = "first",
     step_mm: float | None = None,
+    beam_profile_6db: Any = None,
 ) -> BeamCorrectedLength:
     """The `drop_db` drop length minus the beam width at the same drop (the 20 dB drop method).
+
+    The beam width is that of a point reflector (:func:`beam_width_at`), so
+    the correction holds for reflectors whose edges are smaller than the
+    beam. Along a line on which the reflector extends beyond the beam (its
+    6 dB length above twice the -6 dB beam width: a plate, or the long axis
+    of an elongated reflector) the echo falls by `drop_db` before the beam's
+    edge reaches the reflector's and the corrected length would be too
+    short: none is given there (``extends_beyond_beam``), the 6 dB length is
+    the size along that line.
 
     Parameters
     ----------
     amplitude_map : xarray.DataArray (scan, index)
         Amplitude in %FSH, whose attrs carry the probe (``probe_diameter_mm``,
-        ``probe_frequency_mhz``, ``velocity_m_s``, ``beam_angle_deg``) unless
-        `beam_profile` is given.
+        ``probe_frequency_mhz``, ``velocity_m_s``, ``probe_bandwidth``,
+        ``beam_angle_deg``) unless `beam_profile` is given.
     indication : Indication
         The indication.
     drop_db : float, default 20
@@ -804,13 +999,19 @@ def beam_corrected_length(
         Measured beam widths at this drop, mm, by depth.
     axis, line, edge, step_mm
         As in :func:`drop_length`.
+    beam_profile_6db : mapping or (depths, widths), optional
+        Measured -6 dB beam widths, for the test of a reflector extending
+        beyond the beam (default: the model).
 
     Returns
     -------
     BeamCorrectedLength
+        Its uncertainty is the sampling of the drop length plus half the
+        spread of the beam width over the probe's band: an estimate (noted).
     """
     amp = mg.as_map("amplitude_map", amplitude_map)
-    raw = drop_length(amp, indication, drop_db=drop_db, axis=axis, line=line, edge=edge, step_mm=step_mm)
+    walk = dict(axis=axis, line=line, edge=edge, step_mm=step_mm)
+    raw = drop_length(amp, indication, drop_db=drop_db, **walk)
     notes = list(raw.notes)
     z = indication.depth_mm if depth_mm is None else finite_float("depth_mm", depth_mm)
     if z is None:
@@ -820,12 +1021,18 @@ def beam_corrected_length(
     notes.extend(wnotes)
     if width is None or raw.length_mm is None:
         return BeamCorrectedLength(raw, width, None, None, False, tuple(notes))
+    spread, unc_note = _width_spread(z, float(drop_db), amplitude_map.attrs, beam_profile)
     corrected = raw.length_mm - width
-    unc = raw.uncertainty_mm if raw.uncertainty_mm is not None else 0.0
+    unc = (raw.uncertainty_mm if raw.uncertainty_mm is not None else 0.0) + spread
+    notes.append(unc_note)
     if corrected <= unc:
         notes.append(
             f"{raw.method} length along {raw.direction} ({raw.length_mm:.2f} mm) is not larger than the "
             f"beam width ({width:.2f} mm) within {unc:.2f} mm: not larger than the beam"
         )
-        return BeamCorrectedLength(raw, width, None, raw.uncertainty_mm, True, tuple(notes))
-    return BeamCorrectedLength(raw, width, float(corrected), raw.uncertainty_mm, False, tuple(notes))
+        return BeamCorrectedLength(raw, width, None, unc, True, tuple(notes))
+    extended, why = _extends_beyond_beam(amp, indication, z, beam_profile_6db, **walk)
+    if extended:
+        notes.append(why)
+        return BeamCorrectedLength(raw, width, None, unc, False, tuple(notes), extends_beyond_beam=True)
+    return BeamCorrectedLength(raw, width, float(corrected), unc, False, tuple(notes))

@@ -102,27 +102,30 @@ def test_20db_drop_of_point_reflector_is_not_larger_than_the_beam():
     z = 60.0
     scan = np.arange(0.0, 100.01, 0.5)
     index = np.arange(0.0, 80.01, 0.5)
-    m = point_map(scan, index, (50.0, 40.0), z, 80.0, ATTRS)
+    m = point_map(scan, index, (50.0, 40.0), z, 80.0, probe_attrs(probe_bandwidth=0.0))  # a one-frequency map
     ind = _only(m, threshold=5.0)
     expected_w20 = 2.0 * z * math.tan(math.asin(0.87 * LAMBDA / 10.0))
     b = beam_corrected_length(m, ind, axis="scan", depth_mm=z)
     assert abs(b.raw.length_mm - expected_w20) <= 0.5
-    assert b.beam_width_mm == pytest.approx(expected_w20, rel=0.01)
+    # the exact piston field at 2.8 N is 1.9 % wider at -20 dB than the far-field formula
+    assert b.beam_width_mm == pytest.approx(expected_w20, rel=0.025)
     assert b.not_larger_than_beam and b.length_mm is None
     assert any("not larger than the beam" in n for n in b.notes)
 
 
-def test_20db_drop_with_beam_correction_recovers_a_large_reflector(rect_model, rect_map):
+def test_20db_drop_gives_no_beam_corrected_length_where_the_reflector_extends_beyond_the_beam(rect_model, rect_map):
     # ISO 16827, general principle (20 dB drop minus the -20 dB beam width). With the area-integrated
     # beam model the echo of a plate edge falls by 20 dB before the beam's -20 dB edge reaches it, so the
-    # corrected size of a plate much larger than the beam is low by a fraction of the beam width; the
-    # check allows half the -20 dB beam width (documented in ndtmap.indications.sizing).
+    # corrected size of a plate much larger than the beam would be low by a fraction of the beam width
+    # (documented in ndtmap.indications.sizing): none is given, the 6 dB length is the size there.
     ind = _only(rect_map)
     w20 = float(beam.beam_width_mm(DEPTH, 10.0, 5.0, 5920.0, drop_db=20))
     for axis, true, (lo, hi) in (("scan", 30.0, RECT[:2]), ("index", 20.0, RECT[2:])):
         b = beam_corrected_length(rect_map, ind, axis=axis, depth_mm=DEPTH)
-        assert abs(b.length_mm - true) <= 0.5 * w20
-        assert b.length_mm < true + 1.0  # never oversizes the plate
+        assert b.extends_beyond_beam and b.length_mm is None and not b.not_larger_than_beam
+        assert any("undersize" in n for n in b.notes)
+        biased = b.raw.length_mm - b.beam_width_mm
+        assert true - 0.5 * b.beam_width_mm <= biased < true + 1.0  # what the correction would have given: low
         # the raw crossing itself is where the model's edge response falls to a tenth of the plateau
         # (found here by root finding on the continuous model, scipy.optimize.brentq)
         centre = 0.5 * (RECT[2] + RECT[3]) if axis == "scan" else 0.5 * (RECT[0] + RECT[1])

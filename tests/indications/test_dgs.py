@@ -1,22 +1,34 @@
-"""DGS equivalent flat-bottom-hole size and the DGS diagram."""
+"""DGS equivalent flat-bottom-hole size and the DGS diagram.
+
+Tests named ``test_consistency_*`` make echoes with ndtmap's own beam model and size them back with the same
+model: they check the inversion, not the physics. The physics is checked against closed forms, worked
+examples by hand and, inside the near field, echoes computed here from the Rayleigh integral
+(tests/helpers/rayleigh.py, independent of ndtmap).
+
+References: J. and H. Krautkramer, *Ultrasonic Testing of Materials*, DGS chapter (H_FBH / H_BW =
+pi d^2 z_BW / (2 lambda z^2) beyond about 3 N); Kinsler, Frey et al., *Fundamentals of Acoustics*, ch. 7
+(the Rayleigh integral).
+"""
 
 import math
 
 import numpy as np
 import pytest
+from helpers import rayleigh
 from helpers.sizing_maps import make_map
 
 import ndtmap
 from ndtmap.indications import backwall_reference_fsh, dgs_diagram, equivalent_fbh_diameter, far_field_fbh_diameter
-from ndtmap.physics import beam
+from ndtmap.physics import beam, piston_field
 
 PROBE = dict(probe_diameter_mm=10.0, frequency_mhz=5.0, velocity_m_s=5920.0)
 N = beam.near_field_length_mm(10.0, 5.0, 5920.0)  # 21.1 mm
 
 
-def _amplitudes(d_fbh, z, z_bw, *, alpha=0.0, bw_fsh=80.0, bandwidth=0.0):
-    """Echo heights (%FSH) of an FBH and of the back wall from the piston model, with attenuation."""
-    h_fbh = beam.fbh_echo_relative(z, d_fbh, 10.0, 5.0, 5920.0, bandwidth=bandwidth) * 10 ** (-2 * alpha * z / 20)
+def _model_amplitudes(d_fbh, z, z_bw, *, alpha=0.0, bw_fsh=80.0, bandwidth=0.0):
+    """Echo heights (%FSH) of an FBH and of the back wall from ndtmap's own piston model, with attenuation."""
+    h_fbh = piston_field.disc_echo_relative(z, d_fbh, 10.0, 5.0, 5920.0, bandwidth=bandwidth)
+    h_fbh = h_fbh * 10 ** (-2 * alpha * z / 20)
     h_bw = beam.backwall_echo_relative(z_bw, 10.0, 5.0, 5920.0, bandwidth=bandwidth) * 10 ** (-2 * alpha * z_bw / 20)
     return float(bw_fsh * h_fbh / h_bw), bw_fsh
 
@@ -24,16 +36,57 @@ def _amplitudes(d_fbh, z, z_bw, *, alpha=0.0, bw_fsh=80.0, bandwidth=0.0):
 @pytest.mark.parametrize("d_fbh", [1.0, 2.0, 3.0])
 @pytest.mark.parametrize("z_n", [0.8, 1.5, 4.0, 8.0])
 @pytest.mark.parametrize("alpha", [0.0, 0.02])
-def test_equivalent_size_of_a_known_fbh_within_1_5_db(d_fbh, z_n, alpha):
-    # Krautkramer, Ultrasonic Testing of Materials (DGS method): echoes made with the piston model
-    # (ndtmap.physics.beam), sized back; the error in echo terms is 40 log10(d_est / d) dB.
+def test_consistency_equivalent_size_inverts_its_own_model_within_1_5_db(d_fbh, z_n, alpha):
+    # Consistency, not physics: echoes made with ndtmap's piston model and sized back with it (the physics:
+    # test_near_field_size_against_the_rayleigh_integral and the far-field closed-form tests below).
+    # Inside 3 N the inversion is exact; beyond, the far-field relation is used on the model's echoes
+    # (Krautkramer, DGS chapter), within 1.5 dB in echo terms (40 log10(d_est / d)).
     z, z_bw = z_n * N, 120.0
-    a, b = _amplitudes(d_fbh, z, z_bw, alpha=alpha)
+    a, b = _model_amplitudes(d_fbh, z, z_bw, alpha=alpha)
     r = equivalent_fbh_diameter(a, z, backwall_fsh=b, backwall_sound_path_mm=z_bw, attenuation_db_per_mm=alpha,
                                 **PROBE)
-    assert abs(40 * math.log10(r.ers_mm / d_fbh)) <= 1.5
+    assert abs(40 * math.log10(r.ers_mm / d_fbh)) <= (0.01 if z < 3 * N else 1.5)
     assert r.near_field == (z < 3 * N)
     assert r.method == ("piston" if z < 3 * N else "far-field")
+
+
+def _rayleigh_amplitudes(d_fbh, z, z_bw, bw, bw_fsh=80.0):
+    """Echo heights (%FSH) of an FBH and of the back wall from the Rayleigh integral (tests/helpers/rayleigh.py):
+    the reflected field integrated over the hole, the image piston averaged over the face, each the peak of
+    the pulse's envelope for a Gaussian spectrum of fractional bandwidth bw."""
+    f, w = rayleigh.spectrum(5.0, bw, n=41)
+    h_fbh = rayleigh.echo_peak(rayleigh.disc_echo_spectrum(z, d_fbh / 2, 5.0, f, 5920.0), f, w, z, 5920.0)
+    h_bw = rayleigh.echo_peak(rayleigh.plane_echo_spectrum(z_bw, 5.0, f, 5920.0), f, w, z_bw, 5920.0)
+    return bw_fsh * h_fbh / h_bw, bw_fsh
+
+
+@pytest.mark.parametrize(("d_fbh", "z_n"), [(2.3, 0.45), (2.3, 1.0), (1.5, 2.0), (3.0, 0.7)])
+def test_near_field_size_against_the_rayleigh_integral(d_fbh, z_n):
+    # Inside 3 N the far-field relation does not hold (Krautkramer, DGS chapter): echoes computed here from the
+    # Rayleigh integral (Kinsler & Frey ch. 7) for a 60 % bandwidth probe, back wall at 60 mm (2.8 N), are
+    # sized by ndtmap within 0.5 dB in echo terms (40 log10(d_est / d)); the remaining difference is ndtmap's
+    # closed form of the back wall (Lommel's, exact only for k a >> 1) and its band sampling.
+    z = z_n * N
+    a, b = _rayleigh_amplitudes(d_fbh, z, 60.0, 0.6)
+    r = equivalent_fbh_diameter(a, z, backwall_fsh=b, backwall_sound_path_mm=60.0, bandwidth=0.6, **PROBE)
+    assert r.method == "piston" and r.near_field
+    assert abs(40 * math.log10(r.ers_mm / d_fbh)) <= 0.5
+
+
+def test_issue_case_single_frequency_zero_near_half_the_near_field():
+    # The issue's case: a 2.3 mm hole at 0.45 N read with a single-frequency piston model, whose on-axis field
+    # has a zero near N/2, came out about 10 mm. With the probe's bandwidth (and the hole's finite size) it is
+    # sized from Rayleigh-integral echoes within 0.5 dB; the single-frequency model stays far off (noted).
+    z = 0.45 * N
+    a, b = _rayleigh_amplitudes(2.3, z, 60.0, 0.6)
+    broadband = equivalent_fbh_diameter(a, z, backwall_fsh=b, backwall_sound_path_mm=60.0, bandwidth=0.6, **PROBE)
+    single = equivalent_fbh_diameter(a, z, backwall_fsh=b, backwall_sound_path_mm=60.0, bandwidth=0.0, **PROBE)
+    assert abs(40 * math.log10(broadband.ers_mm / 2.3)) <= 0.5
+    assert any("single-frequency" in n for n in single.notes)
+    # the old model (small hole, one frequency) read this echo as 7.9 mm, more than 3 times too large (and
+    # 10.6 mm an echo of the small-hole broadband model, the issue's 10.4 mm)
+    k = float(beam.fbh_echo_relative(z, 1.0, 10.0, 5.0, 5920.0) / beam.backwall_echo_relative(60.0, 10.0, 5.0, 5920.0))
+    assert math.sqrt(a / b / k) > 3 * 2.3
 
 
 def test_far_field_closed_form_independently():
@@ -76,15 +129,24 @@ def test_attenuation_correction_is_two_way():
     assert att.ratio_db - base.ratio_db == pytest.approx(2 * 0.01 * (100.0 - 150.0))
 
 
-def test_near_field_uses_the_piston_model_and_warns():
+def test_consistency_near_field_uses_the_piston_model_and_warns():
+    # Consistency: an echo from ndtmap's own piston model is inverted exactly by it; the far-field relation,
+    # used where it does not hold, is off.
     z = 1.2 * N
-    a, b = _amplitudes(2.0, z, 150.0)
+    a, b = _model_amplitudes(2.0, z, 150.0)
     far = equivalent_fbh_diameter(a, z, backwall_fsh=b, backwall_sound_path_mm=150.0, model="far-field", **PROBE)
     auto = equivalent_fbh_diameter(a, z, backwall_fsh=b, backwall_sound_path_mm=150.0, **PROBE)
     assert auto.near_field and auto.method == "piston"
-    assert auto.ers_mm == pytest.approx(2.0, rel=1e-9)  # the model is inverted exactly
+    assert auto.ers_mm == pytest.approx(2.0, rel=1e-4)  # the model is inverted
     assert abs(40 * math.log10(far.ers_mm / 2.0)) > 1.5  # the far-field relation is off in the near field
     assert any("near-field" in n for n in auto.notes)
+
+
+def test_echo_stronger_than_any_hole_gives_no_size():
+    # an echo above that of a hole as wide as the probe (in the near field) has no equivalent FBH size
+    r = equivalent_fbh_diameter(79.0, 0.5 * N, backwall_fsh=20.0, backwall_sound_path_mm=150.0, bandwidth=0.6,
+                                **PROBE)
+    assert r.ers_mm is None and any("drop methods" in n for n in r.notes)
 
 
 def test_backwall_reference_and_errors():
@@ -116,12 +178,19 @@ def test_dgs_diagram_far_field_slopes_and_size_steps():
     slope_fbh = np.polyfit(logz, ds.fbh_echo_db.sel(fbh_diameter_mm=2.0).values[far], 1)[0]
     assert slope_bw == pytest.approx(-20.0, abs=0.5)
     assert slope_fbh == pytest.approx(-40.0, abs=0.5)
+    # far field the hole's echo grows as its area; inside the near field the finite hole does not (the field
+    # is not even across it, see tests/physics/test_piston_field.py)
     step = ds.fbh_echo_db.sel(fbh_diameter_mm=4.0) - ds.fbh_echo_db.sel(fbh_diameter_mm=2.0)
-    assert np.allclose(step, 40 * math.log10(2.0), atol=1e-9)
+    assert np.allclose(step.where(far, drop=True), 40 * math.log10(2.0), atol=0.25)
+    assert float(abs(step - 40 * math.log10(2.0)).max()) > 1.0
     # the model curves meet the far-field relation beyond 3 N (within 1 dB)
     beyond = ds.distance_n >= 3.0
     assert float(abs(ds.backwall_echo_db - ds.backwall_echo_far_field_db).where(beyond).max()) < 1.0
-    assert float(abs(ds.fbh_echo_db - ds.fbh_echo_far_field_db).where(beyond).max()) < 1.0
+    # (holes small against the beam; a 4 mm hole, 0.55 of the -6 dB beam width at 3 N, echoes 1.6 dB less
+    # there than the small-hole law, the field being uneven across it, and meets it within 1 dB from 5 N)
+    gap = abs(ds.fbh_echo_db - ds.fbh_echo_far_field_db)
+    assert float(gap.sel(fbh_diameter_mm=[1.0, 2.0]).where(beyond).max()) < 1.0
+    assert float(gap.sel(fbh_diameter_mm=4.0).where(far).max()) < 1.0
     # normalisation: far-field back wall is (pi/2) (N/z), i.e. -6.1 dB at z = 3 N... checked at z/N = 10
     i = int(np.argmin(abs(ds.distance_n.values - 10.0)))
     zn = float(ds.distance_n[i])

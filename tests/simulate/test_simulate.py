@@ -1,5 +1,12 @@
 """The simulator's physics against published relations.
 
+The simulator is built on ndtmap's own beam functions (the band-averaged on-axis law, the far-field lateral
+directivity, the Lommel back-wall law it is calibrated to). Tests that compare it with those functions are
+consistency tests and are named ``test_consistency_*``; each quantity also has a check against something
+independent: closed forms worked by hand, or echoes computed here from the Rayleigh integral
+(tests/helpers/rayleigh.py, which shares nothing with ndtmap; Kinsler, Frey et al., *Fundamentals of
+Acoustics*, ch. 7).
+
 References
 ----------
 - J. and H. Krautkramer, *Ultrasonic Testing of Materials*, ch. 4-5 and the DGS
@@ -17,6 +24,8 @@ import math
 
 import numpy as np
 import pytest
+from helpers import rayleigh
+from scipy import optimize
 from scipy.signal import hilbert
 
 from ndtmap.errors import ParameterError
@@ -80,11 +89,11 @@ def test_backwall_echo_time_and_gain():
     assert a.max() == pytest.approx(80.0, abs=0.01)
 
 
-def test_plane_echo_follows_diffraction_law():
-    # An infinite plane gives the Lommel back-wall law at every depth. Inside the near field this is
-    # imposed by the plane-correction factor; in the far field the coherent patch sum reaches the law by
-    # itself (stationary phase over the Fresnel zones), so the factor must be close to 1 there: that is
-    # the independent check of the model against the diffraction integral (Krautkramer ch. 5).
+def test_consistency_plane_echo_follows_the_models_diffraction_law():
+    # Consistency: an infinite plane gives ndtmap's Lommel back-wall law at every depth. Inside the near field
+    # this is imposed by the plane-correction factor; in the far field the coherent patch sum reaches the law
+    # by itself (stationary phase over the Fresnel zones), so the factor must be close to 1 there (Krautkramer
+    # ch. 5). Independent check: test_plane_echo_against_the_rayleigh_integral.
     model = _build_model(PROBE, STEEL, Part(300.0), ScanPlan.raster((0, 0), (0, 0), 1, (0, 1)))
     far = np.array([4 * N, 8 * N, 12 * N])
     assert model.plane_correction(far) == pytest.approx(np.ones(3), abs=0.06)
@@ -95,9 +104,57 @@ def test_plane_echo_follows_diffraction_law():
         assert got == pytest.approx(want, rel=tol)
 
 
+def _rayleigh_echo(z, spectrum_fn):
+    """Envelope peak (x 100 %FSH) of an echo computed from the Rayleigh integral for the simulator's probe."""
+    f, w = rayleigh.spectrum(5.0, 0.6, n=41)
+    return 100.0 * rayleigh.echo_peak(spectrum_fn(f), f, w, z, 5920.0)
+
+
+@pytest.mark.parametrize("z_over_n", [0.5, 2.0, 60.0 / N])
+def test_plane_echo_against_the_rayleigh_integral(z_over_n):
+    # Independent: the echo of an infinite plane is the field of the image piston at 2 z averaged over the
+    # probe face (Krautkramer ch. 4-5), here from the Rayleigh integral for a 60 % band, the peak of the
+    # pulse's envelope. The simulator (calibrated to Lommel's closed form) agrees within 0.4 % (1 % allowed);
+    # at 60 mm this is also the plateau of a large lamination.
+    z = z_over_n * N
+    ds = single(Part(z), [], (0.0, 2 * z / 5.92 + 2))
+    got = float(echo_peak(ds, 2 * z / 5.92)[0, 0])
+    want = _rayleigh_echo(z, lambda f: rayleigh.plane_echo_spectrum(z, 5.0, f, 5920.0))
+    assert got == pytest.approx(want, rel=0.01)
+
+
+@pytest.mark.parametrize(("d", "z_over_n", "offset_db"), [(2.0, 1.0, 0.0), (2.0, 3.0, 0.0), (1.5, 6.0, 0.0),
+                                                         (2.0, 0.5, 2.5)])
+def test_fbh_echo_against_the_rayleigh_integral(d, z_over_n, offset_db):
+    # Independent: a flat-bottom hole echoes (1/(pi a^2)) int_hole (p/p0)^2 dS (Kirchhoff), the Rayleigh field
+    # integrated over the hole, the peak of the pulse's envelope. The simulator (patches weighted by ndtmap's
+    # band-averaged on-axis law and its far-field lateral directivity) agrees within 0.1 dB from N on (0.3 dB
+    # allowed). At N/2 it is 2.5 dB high: its lateral model keeps the far-field directivity, narrower than
+    # the near-field beam across the hole. A known limitation of the simulator, stated so that a change shows.
+    z = z_over_n * N
+    ds = single(Part(z + 40.0), [FlatBottomHole(0.0, 0.0, z, d)], (2 * z / 5.92 - 2, 2 * z / 5.92 + 2))
+    got = float(echo_peak(ds, 2 * z / 5.92)[0, 0])
+    want = _rayleigh_echo(z, lambda f: rayleigh.disc_echo_spectrum(z, d / 2, 5.0, f, 5920.0))
+    assert 20 * math.log10(got / want) == pytest.approx(offset_db, abs=0.3)
+
+
+@pytest.mark.parametrize("z_over_n", [5.0, 8.0])
+def test_dgs_ratio_of_simulated_echoes_against_the_closed_form(z_over_n):
+    # Independent: H_FBH/H_BW = pi d^2/(2 lambda z) at equal distance in the far field (Krautkramer, DGS
+    # chapter), written out here, against the simulator's own FBH and back-wall echoes (both simulated)
+    z = z_over_n * N
+    d = 2.0
+    h_fbh = float(echo_peak(single(Part(z + 40.0), [FlatBottomHole(0.0, 0.0, z, d)],
+                                   (2 * z / 5.92 - 2, 2 * z / 5.92 + 2)), 2 * z / 5.92)[0, 0])
+    h_bw = float(echo_peak(single(Part(z), [], (2 * z / 5.92 - 2, 2 * z / 5.92 + 2)), 2 * z / 5.92)[0, 0])
+    lam = 5920.0 / 5e3
+    assert 20 * math.log10(h_fbh / h_bw) == pytest.approx(20 * math.log10(math.pi * d * d / (2 * lam * z)), abs=1.0)
+
+
 @pytest.mark.parametrize("z_over_n", [3.0, 5.0, 8.0])
-def test_dgs_ratio_fbh_to_backwall(z_over_n):
-    # H_FBH/H_BW = pi d^2/(2 lambda z) at equal distance, far field (Krautkramer, DGS chapter)
+def test_consistency_dgs_ratio_fbh_to_backwall(z_over_n):
+    # Consistency: the simulator's FBH echo against ndtmap's back-wall law and DGS function (the relation
+    # H_FBH/H_BW = pi d^2/(2 lambda z), Krautkramer DGS chapter, is checked independently just above)
     z = z_over_n * N
     d = 2.0
     ds = single(Part(z + 40.0), [FlatBottomHole(0.0, 0.0, z, d)], (2 * z / 5.92 - 2, 2 * z / 5.92 + 2))
@@ -108,9 +165,10 @@ def test_dgs_ratio_fbh_to_backwall(z_over_n):
     assert ratio_db == pytest.approx(formula_db, abs=1.0)
 
 
-def test_far_field_echo_laws():
-    # back wall ~ 1/z and small disc ~ 1/z^2 in the far field (Krautkramer ch. 5): a factor 2 in
-    # distance costs 6 dB for the back wall and 12 dB for the disc
+def test_consistency_far_field_echo_laws():
+    # Consistency (the simulator's on-axis law is ndtmap's): back wall ~ 1/z and small disc ~ 1/z^2 in the far
+    # field (Krautkramer ch. 5): a factor 2 in distance costs 6 dB for the back wall and 12 dB for the disc.
+    # Independent: test_fbh_echo_against_the_rayleigh_integral and test_plane_echo_against_the_rayleigh_integral.
     z1, z2 = 6 * N, 12 * N
     bw = [
         float(echo_peak(single(Part(z), [], (2 * z / 5.92 - 2, 2 * z / 5.92 + 2)), 2 * z / 5.92)[0, 0])
@@ -128,9 +186,7 @@ def test_far_field_echo_laws():
     assert 20 * math.log10(fbh[0] / fbh[1]) == pytest.approx(12.04, abs=0.6)
 
 
-def test_beam_spread_of_small_reflector():
-    # -6 dB pulse-echo beam width 2 z tan(gamma), sin(gamma) = 0.51 lambda/D (Krautkramer ch. 4), far field
-    z = 100.0
+def _small_fbh_scan_width(z):
     plan = ScanPlan.raster((-12, 12), (0, 0), 0.25, (2 * z / 5.92 - 1.5, 2 * z / 5.92 + 1.5))
     ds = simulate_scan(PROBE, STEEL, Part(200.0), [FlatBottomHole(0, 0, z, 1.0)], plan, gain_db=20, repeat_echoes=False)
     amp = envelope(ds.ascan.values[:, 0, :]).max(axis=1)
@@ -140,12 +196,40 @@ def test_beam_spread_of_small_reflector():
     i0, i1 = above[0], above[-1]
     left = np.interp(half, [amp[i0 - 1], amp[i0]], [x[i0 - 1], x[i0]])
     right = np.interp(half, [amp[i1 + 1], amp[i1]], [x[i1 + 1], x[i1]])
+    return right - left
+
+
+def test_beam_spread_of_small_reflector_against_the_rayleigh_integral():
+    # Independent: the -6 dB width of the band-averaged pulse-echo profile at 100 mm from the Rayleigh
+    # integral (60 % band; far field the envelope peak and the band average agree, see
+    # tests/physics/test_piston_field.py) is 11.0 mm. The simulator's lateral model is the one-frequency
+    # far-field directivity (ndtmap.physics.beam.lateral_sensitivity): its width is 10 to 12 % larger.
+    # Known limitation of the simulator, stated here so that a change of it shows.
+    z = 100.0
+    f, w = rayleigh.spectrum(5.0, 0.6, n=21)
+
+    def profile(r):
+        return rayleigh.band_averaged_intensity(r, z, 5.0, f, w, 5920.0, n_radial=48, n_angle=96)
+
+    peak = profile(0.0)
+    reference = 2 * optimize.brentq(lambda r: profile(r) - 0.5 * peak, 3.0, 9.0, xtol=1e-3)
+    assert reference == pytest.approx(11.0, abs=0.1)
+    assert 1.08 < _small_fbh_scan_width(z) / reference < 1.14
+
+
+def test_consistency_beam_spread_of_small_reflector_is_the_one_frequency_formula():
+    # Consistency: the simulator's lateral model is the one-frequency far-field directivity, so its -6 dB
+    # width is 2 z tan(gamma), sin(gamma) = 0.51 lambda/D (Krautkramer ch. 4); the band's own width is the
+    # test above
+    z = 100.0
     gamma = math.asin(0.51 * LAM / 10.0)
-    assert right - left == pytest.approx(2 * z * math.tan(gamma), rel=0.03)
+    assert _small_fbh_scan_width(z) == pytest.approx(2 * z * math.tan(gamma), rel=0.03)
 
 
 def test_edge_of_large_planar_reflector_gives_half_amplitude():
-    # ISO 16827 (general principle of the 6 dB drop): a half-covered beam returns half the plateau echo
+    # ISO 16827 (general principle of the 6 dB drop): a half-covered beam returns half the plateau echo.
+    # The plateau against ndtmap's back-wall law at the end is a consistency check (the simulator is calibrated
+    # to it); independently, test_plane_echo_against_the_rayleigh_integral at 60 mm.
     z = 60.0
     refl = PlanarReflector.rectangle((0.0, 200.0), (-100.0, 100.0), z)
     plan = ScanPlan.raster((-15, 15), (0, 0), 0.5, (2 * z / 5.92 - 1.5, 2 * z / 5.92 + 1.5))

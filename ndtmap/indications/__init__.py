@@ -36,6 +36,7 @@ from ndtmap.indications.echoes import (
 from ndtmap.indications.flags import (
     FLAG_MEANINGS,
     FLAGS,
+    beam_size_flags,
     explain,
     is_low_snr,
     is_saturated,
@@ -85,6 +86,7 @@ from ndtmap.indications.sizing import (
     drop_length,
     level_area,
     level_length,
+    point_reflector_range_at,
 )
 from ndtmap.indications.tables import (
     CSV_COLUMNS,
@@ -109,6 +111,7 @@ __all__ = [
     "level_area",
     "beam_corrected_length",
     "beam_width_at",
+    "point_reflector_range_at",
     "drop_factor",
     "DgsResult",
     "equivalent_fbh_diameter",
@@ -120,6 +123,7 @@ __all__ = [
     "FLAGS",
     "is_saturated",
     "is_smaller_than_beam",
+    "beam_size_flags",
     "noise_level_fsh",
     "is_low_snr",
     "repeat_echo_notes",

@@ -22,7 +22,8 @@ import numpy as np
 from ndtmap.errors import NdtmapError
 from ndtmap.gates import evaluate_gates
 from ndtmap.grid.schema import grid_attr
-from ndtmap.indications import dgs_diagram
+from ndtmap.indications import DgsOptions, dgs_diagram
+from ndtmap.indications.equivalent_size import DgsInputs
 from ndtmap.physics import near_field_length_mm
 from ndtmap.plot import (
     ascan_at,
@@ -259,8 +260,11 @@ def dgs_plot(analysis: Any, part: str) -> Built:
     z_ind = [float(r["depth_mm"]) / cos for r in with_ers]
     zmax = 1.5 * max(zb, *z_ind)
     zmin = 0.5 * min(z_ind)
+    # the curves with the band the sizes were made with, so each point lies on its own curve
+    bandwidth = DgsInputs.from_attrs(grid.attrs, DgsOptions()).bandwidth
     diagram = dgs_diagram(d, f, c, dgs_family(d, [float(r["ers_mm"]) for r in with_ers]),
-                          max_distance_n=max(zmax / n, 3.5), min_distance_n=min(0.2, zmin / n), n_points=300)
+                          max_distance_n=max(zmax / n, 3.5), min_distance_n=min(0.2, zmin / n), n_points=300,
+                          bandwidth=bandwidth)
     points = dgs_points(with_ers, diagram, backwall_sound_path_mm=zb, beam_angle_deg=angle)
     zz = np.asarray(diagram["distance_mm"].values)
     bw_level = float(np.interp(math.log(zb), np.log(zz), diagram["backwall_echo_db"].values))

@@ -70,3 +70,22 @@ def test_an_error_of_one_builder_is_a_note_and_the_others_go_on(plate, monkeypat
     figs, notes = build_figures(analysis, ["bscan", "depth"], "P")
     assert [f.kind for f in figs] == ["depth"]
     assert notes == ["no bscan figure: `index_mm` 999 is outside the scan"]
+
+
+def test_dgs_figure_curves_use_the_band_the_sizes_were_made_with(monkeypatch):
+    # the equivalent sizes come from the broadband piston model with the grid's probe_bandwidth; a diagram
+    # drawn at a single frequency would put the indications off their own curves inside the near field
+    grid = open_grid(sample_path("forging_block.nc"))
+    proc = load_procedure(Path(ndtmap.__file__).resolve().parent / "data" / "forging_procedure.toml")
+    analysis = run_procedure(grid, proc)
+    seen = {}
+    real = report_figures.dgs_diagram
+
+    def spy(*args, **kwargs):
+        seen.update(kwargs)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(report_figures, "dgs_diagram", spy)
+    figs, notes = build_figures(analysis, ["dgs"], "KFP-FG-0317")
+    assert [f.kind for f in figs] == ["dgs"], notes
+    assert seen["bandwidth"] == pytest.approx(float(grid.attrs["probe_bandwidth"]))

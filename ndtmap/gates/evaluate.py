@@ -149,6 +149,7 @@ class _Raw:
     event: xr.DataArray | None = None  # event time before masking by `triggered` (for the clipped state)
     base: int = 0  # first sample of the array the sample numbers of the window count from
     ratio: xr.DataArray | None = None  # peak of 100 A/DAC over the window, % of the curve (with a curve)
+    level: xr.DataArray | None = None  # the curve's level where the ratio peaks, %FSH (gate with a level re DAC)
 
 
 def _clipped_near(mask: np.ndarray, sample: np.ndarray, *, before: int, after: int) -> np.ndarray:
@@ -410,10 +411,11 @@ class _Evaluator:
             time = cross_time
             event = cross_time.where(trig, peak_time)
         ratio = None
+        level = None
         if on_curve:  # the amplitude re the curve, and the A-scan amplitude where the ratio peaks
             ratio = amp
-            depth = self.pc.depth_mm(event)
-            amp = ratio / 100.0 * self.curve.level_fsh(depth)
+            level = self.curve.level_fsh(self.pc.depth_mm(event))
+            amp = ratio / 100.0 * level
         ok = self.ok_mask(on_curve)
         if ok is not None:
             amp = amp.where(ok)
@@ -421,7 +423,8 @@ class _Evaluator:
             ratio = None if ratio is None else ratio.where(ok)
         trig = trig.astype(bool)
         time = time.where(trig)
-        raw = _Raw(amp, trig, time, window, outside, w_start, w_end, event=event, base=base, ratio=ratio)
+        raw = _Raw(amp, trig, time, window, outside, w_start, w_end, event=event, base=base, ratio=ratio,
+                   level=None if level is None else level.where(amp.notnull()))
         self._memo[name] = raw
         return raw
 
@@ -500,6 +503,9 @@ class _Evaluator:
             data["amplitude_db_re_dac"] = db.assign_attrs(
                 units="dB", long_name=f"{label} amplitude re {self.curve.label} (maximum of A/DAC over the window)")
             extra["dac"] = json.dumps(self.curve.to_dict())
+        if raw.level is not None:
+            data["dac_level_fsh"] = raw.level.assign_attrs(
+                units="%FSH", long_name=f"{label} {self.curve.label} level where A/DAC peaks")
         if raw.outside is not None:
             data["window_start_us"] = raw.window_start.assign_attrs(units="us", long_name=f"{label} window start")
             data["window_end_us"] = raw.window_end.assign_attrs(units="us", long_name=f"{label} window end")

@@ -263,6 +263,7 @@ def _build(
     bridge_missing: bool,
     order: str,
     first_id: int,
+    rank: np.ndarray | None = None,
 ) -> list[Indication]:
     scan, index = mg.coords_mm(value_map)
     areas = mg.cell_areas(value_map)
@@ -275,7 +276,8 @@ def _build(
             continue
         if min_area_mm2 > 0 and (area is None or area < min_area_mm2):
             continue
-        v = np.where(region, values, -np.inf)
+        v = np.where(region & np.isfinite(values if rank is None else rank), values if rank is None else rank,
+                     -np.inf)
         flat = int(np.argmax(v))  # first maximum in C order: lowest scan, then lowest index
         pk = np.unravel_index(flat, values.shape)
         pk = (int(pk[0]), int(pk[1]))
@@ -319,7 +321,7 @@ def _build(
                 touches_edge=mg.touches_edge(region),
                 missing_adjacent=mg.adjacent_missing(region, missing),
                 region=region,
-                _peak=peak_value,
+                _peak=peak_value if rank is None else float(rank[pk]),
             )
         )
     if order == "peak":
@@ -366,7 +368,9 @@ def detect_indications(
         Detection level in %FSH: positions with amplitude >= it are detected.
     threshold_db : float, optional
         Detection level in dB re `reference` (e.g. -6 for "half the DAC").
-        Give exactly one of `threshold_fsh` and `threshold_db`.
+        Give exactly one of `threshold_fsh` and `threshold_db`. With it the
+        peak of an indication (and the numbering) is the position of the
+        highest amplitude re the reference, not the highest %FSH.
     reference : float or xarray.DataArray, optional
         Reference level in %FSH: one number (a nominal back-wall level or a
         reference reflector echo) or a map of per-position levels (e.g. a DAC
@@ -416,6 +420,7 @@ def detect_indications(
             f"threshold_fsh={threshold_fsh!r}, threshold_db={threshold_db!r}"
         )
     ref = reference_map(reference, amp) if reference is not None else None
+    rank = None
     values = np.where(np.isfinite(amp.values), amp.values, np.nan)  # +-inf amplitude is not a reading
     with np.errstate(invalid="ignore"):
         if threshold_fsh is not None:
@@ -430,6 +435,7 @@ def detect_indications(
                 raise ParameterError("`threshold_db` needs a `reference` level (a number in %FSH or a map)")
             above = np.isfinite(values) & np.isfinite(ref) & (values >= ref * 10.0 ** (db / 20.0))
             text = f">= {db:+g} dB re reference"
+            rank = values / ref  # the peak of a level in dB is the highest amplitude re the reference
     depth = None
     if depth_map is not None:
         dm = mg.as_map("depth_map", depth_map)
@@ -448,6 +454,7 @@ def detect_indications(
         bridge_missing=bool(bridge_missing),
         order=order,
         first_id=first,
+        rank=rank,
     )
 
 

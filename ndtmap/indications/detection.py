@@ -276,8 +276,7 @@ def _build(
             continue
         if min_area_mm2 > 0 and (area is None or area < min_area_mm2):
             continue
-        v = np.where(region & np.isfinite(values if rank is None else rank), values if rank is None else rank,
-                     -np.inf)
+        v = np.where(region, values, -np.inf) if rank is None else np.where(region & np.isfinite(rank), rank, -np.inf)
         flat = int(np.argmax(v))  # first maximum in C order: lowest scan, then lowest index
         pk = np.unravel_index(flat, values.shape)
         pk = (int(pk[0]), int(pk[1]))

@@ -472,7 +472,8 @@ class _Evaluator:
             )
         return self.evaluate(depth_from).time, depth_from
 
-    def dataset(self, name: str, *, depth_from: str = "auto", reference_fsh: float | None = None) -> xr.Dataset:
+    def dataset(self, name: str, *, depth_from: str = "auto", reference_fsh: float | None = None,
+                strict: bool = True) -> xr.Dataset:
         gate = self.table[name]
         raw = self.evaluate(name)
         t_ref, ref_name = self.reference_time(name, depth_from)
@@ -498,10 +499,18 @@ class _Evaluator:
         data["clipped"] = self.clipped(name).assign_attrs(
             units="1", long_name=f"{label} echo clipped by the digitiser")
         if self.curve is not None:
-            with np.errstate(divide="ignore", invalid="ignore"):
-                db = 20.0 * np.log10(self.ratio_peak(name) / 100.0)
-            data["amplitude_db_re_dac"] = db.assign_attrs(
-                units="dB", long_name=f"{label} amplitude re {self.curve.label} (maximum of A/DAC over the window)")
+            try:
+                ratio = self.ratio_peak(name)
+            except CalibrationError as exc:  # a window beyond a refusing curve: only the gate asked for raises
+                if strict or gate.level_re_curve:
+                    raise
+                ratio = None
+                extra["dac_note"] = f"no amplitude re the curve: {exc}"
+            if ratio is not None:
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    db = 20.0 * np.log10(ratio / 100.0)
+                data["amplitude_db_re_dac"] = db.assign_attrs(
+                    units="dB", long_name=f"{label} amplitude re {self.curve.label} (maximum of A/DAC over the window)")
             extra["dac"] = json.dumps(self.curve.to_dict())
         if raw.level is not None:
             data["dac_level_fsh"] = raw.level.assign_attrs(
@@ -627,7 +636,10 @@ def evaluate_gates(
 
     Each gate is evaluated once, also when others follow it. Options as in
     :func:`evaluate_gate` (`depth_from` applies to every gate: use 'auto' or
-    'entry' here; `kernel` chooses the implementation).
+    'entry' here; `kernel` chooses the implementation). With a `dac` that
+    refuses depths beyond its points, a gate whose window leaves them (and
+    whose level is not re the DAC) gets no ``amplitude_db_re_dac`` and the
+    attribute ``dac_note`` says why.
 
     Returns
     -------
@@ -652,7 +664,8 @@ def evaluate_gates(
     grid = check_grid(grid)
     table = gate_table(gates[0], gates[1:])
     ev = _Evaluator(grid, table, detect, echo_hold_us, kernel, curve=dac)
-    return {g.name: ev.dataset(g.name, depth_from=depth_from, reference_fsh=reference_fsh) for g in gates}
+    return {g.name: ev.dataset(g.name, depth_from=depth_from, reference_fsh=reference_fsh, strict=False)
+            for g in gates}
 
 
 def gate_window_us(grid: xr.Dataset, gate: Gate) -> tuple[float, float]:

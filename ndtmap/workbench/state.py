@@ -580,6 +580,10 @@ class WorkbenchState:
             return rec.dac
         return self.analysis(progress=progress).curve
 
+    def _gates_curve(self) -> DacCurve | None:
+        """The recording curve when a gate has its level re the DAC (its events need it), else None."""
+        return self.recording_curve() if any(g.level_re_curve for g in self.gates) else None
+
     def set_recording(self, recording: RecordingCurve | None) -> Procedure:
         """Change the recording curve (DAC points or a DGS level; None for none) of the settings.
 
@@ -716,7 +720,7 @@ class WorkbenchState:
         if self.grid["ascan"].attrs.get("signal", "rf") == "rf":
             rf = np.asarray(cx.computed(ascan_in_fsh(sub), None, "").values[0, 0], dtype=np.float64)
         missing = bool(cx.computed(missing_ascans(sub), None, "").values[0, 0])
-        results = evaluate_gates(sub, list(self.gates), detect=detect)
+        results = evaluate_gates(sub, list(self.gates), detect=detect, dac=self._gates_curve())
         marks = []
         for g in self.gates:
             r = cx.computed(results[g.name], None, "")
@@ -751,7 +755,7 @@ class WorkbenchState:
             sec = d_scan(sub, float(self._scan[i]), detect=detect)
             pos, squeeze = self._index, {"scan": 0}
         sec = cx.computed(sec, None, "")
-        results = evaluate_gates(sub, list(self.gates), detect=detect)
+        results = evaluate_gates(sub, list(self.gates), detect=detect, dac=self._gates_curve())
         lines = []
         for g in self.gates:
             r = cx.computed(results[g.name], None, "")

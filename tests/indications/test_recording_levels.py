@@ -236,8 +236,13 @@ def test_workbench_state_takes_the_curve_through_its_procedure():
     st = WorkbenchState(_shallow_deep_grid(), procedure=proc)
     assert st.recording_curve() == dac
     recs = st.indications()
-    assert len(recs) == 1 and recs[0]["n_positions"] == 16 and recs[0]["depth_mm"] == pytest.approx(_depth(T_DEEP), abs=0.1)
+    assert len(recs) == 1 and recs[0]["n_positions"] == 16
+    assert recs[0]["depth_mm"] == pytest.approx(_depth(T_DEEP), abs=0.1)
     assert float(st.map("depth")[5, 5]) == pytest.approx(_depth(T_DEEP), abs=0.1)
+    st.select_point(5.0, 5.0)
+    mark = st.ascan().gates[0]  # the A-scan view: the event where A/DAC peaks
+    assert mark.triggered and mark.event_at == pytest.approx(_depth(T_DEEP), abs=0.1)
+    assert "dB re the DAC" in mark.label()
     with pytest.raises(ndtmap.ProcedureError):
         st.set_recording(None)
     assert st.settings.recording.dac == dac  # left as it was

@@ -351,3 +351,16 @@ def test_an_unclipped_echo_amplified_by_tcg_is_not_saturated():
     assert "saturated" not in recs[0]["flags"]
     r = evaluate_gate(boosted, Gate("g", 5.0, 55.0))
     assert not bool(r.clipped.any())
+
+
+def test_a_150_fsh_back_wall_on_a_200_fsh_digitiser_serves_dgs():
+    from ndtmap.indications import equivalent_fbh_diameter
+
+    probe = dict(probe_diameter_mm=10.0, frequency_mhz=5.0, velocity_m_s=STEEL)
+    # far field, by hand (Krautkramer ch. 5): ratio 10^(-18.5/20) at z = z_BW = 100 mm, lambda 1.184 mm -> d = 3.0 mm
+    r = equivalent_fbh_diameter(150.0 * 10 ** (-18.5 / 20), 100.0, backwall_fsh=150.0, backwall_sound_path_mm=100.0,
+                                full_scale_fsh=200.0, **probe)
+    assert r.ers_mm == pytest.approx(3.0, abs=0.01)
+    with pytest.raises(ndtmap.CalibrationError, match="saturated"):
+        equivalent_fbh_diameter(10.0, 100.0, backwall_fsh=200.0, backwall_sound_path_mm=100.0, full_scale_fsh=200.0,
+                                **probe)

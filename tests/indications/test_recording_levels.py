@@ -123,8 +123,8 @@ def test_amplitude_re_dac_is_the_maximum_of_a_over_dac_in_the_window():
     g = _shallow_deep_grid()
     dac = dac_curve([10.0, 50.0], [80.0, 20.0])
     expected_deep = 20 * math.log10(30.0 / _hand_dac(_depth(T_DEEP)))  # +2.01 dB
-    old_way = 20 * math.log10(50.0 / _hand_dac(_depth(T_SHALLOW)))  # the highest echo at its own depth: -1.78 dB
-    assert expected_deep == pytest.approx(2.01, abs=0.01) and old_way < 0
+    old_way = 20 * math.log10(50.0 / _hand_dac(_depth(T_SHALLOW)))  # the highest echo at its own depth: -3.44 dB
+    assert expected_deep == pytest.approx(2.01, abs=0.01) and old_way == pytest.approx(-3.44, abs=0.01)
     r = evaluate_gate(g, Gate("flaw", 10.0, 50.0, threshold_fsh=20.0), dac=dac)
     assert float(r.amplitude_db_re_dac[5, 5]) == pytest.approx(expected_deep, abs=1.0)
     assert float(r.amplitude_db_re_dac[5, 5]) == pytest.approx(expected_deep, abs=0.05)
@@ -163,7 +163,7 @@ def test_cli_dac_threshold_db_reports_the_deep_echo_above_dac(tmp_path):
     doc = json.loads(text)
     assert doc["threshold_db"] == 0.0 and doc["recording_curve"]["depths_mm"] == [10.0, 50.0]
     recs = doc["indications"]
-    assert len(recs) == 1  # the shallow echo (-1.8 dB re DAC) is not recorded, the deep one is
+    assert len(recs) == 1  # the shallow echo (-3.4 dB re DAC) is not recorded, the deep one is
     rec = recs[0]
     expected = 20 * math.log10(30.0 / _hand_dac(_depth(T_DEEP)))
     assert rec["peak_db"] == pytest.approx(expected, abs=1.0)
@@ -172,7 +172,7 @@ def test_cli_dac_threshold_db_reports_the_deep_echo_above_dac(tmp_path):
     assert rec["reference_fsh"] == pytest.approx(_hand_dac(_depth(T_DEEP)), rel=0.01)
     for key in ("length_scan_mm", "length_index_mm", "area_mm2", "flags"):
         assert key in rec
-    # at -4 dB re DAC the shallow echo (-1.8 dB) is recorded too, with its own peak in dB
+    # at -4 dB re DAC the shallow echo (-3.4 dB) is recorded too, with its own peak in dB
     code, text = _cli(["indications", str(path), "--gate-mm", "5", "55", "--dac", str(dac), "--threshold-db", "-4",
                        "--format", "json"])
     peaks = sorted(r["peak_db"] for r in json.loads(text)["indications"])

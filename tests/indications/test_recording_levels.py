@@ -364,3 +364,15 @@ def test_a_150_fsh_back_wall_on_a_200_fsh_digitiser_serves_dgs():
     with pytest.raises(ndtmap.CalibrationError, match="saturated"):
         equivalent_fbh_diameter(10.0, 100.0, backwall_fsh=200.0, backwall_sound_path_mm=100.0, full_scale_fsh=200.0,
                                 **probe)
+
+
+def test_workbench_view_opens_on_a_level_re_the_dac():
+    from ndtmap.workbench import open_workbench
+
+    dac = dac_curve([10.0, 50.0], [80.0, 20.0], outside="conservative")
+    proc = Procedure("survey", (Gate("flaw", 5.0, 55.0, threshold_db=0.0, reference="dac"),), "flaw",
+                     recording=RecordingCurve("dac", dac=dac))
+    wb = open_workbench(_shallow_deep_grid(), procedure=proc, background=False)
+    assert wb.controls["threshold"].disabled  # the level is in dB re the DAC, not one %FSH value
+    wb.controls["end"].value = 50.0  # a window change keeps the level re the DAC
+    assert wb.state.gate("flaw").end == 50.0 and wb.state.gate("flaw").level_re_curve

@@ -42,6 +42,7 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_int
 from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import jsonable
+from ndtmap.signal import DacCurve
 
 __all__ = [
     "Indication",
@@ -165,7 +166,7 @@ def reference_map(reference: Any, amplitude_map: xr.DataArray, *, name: str = "r
     return np.full(shape, level)
 
 
-def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh: Any) -> xr.DataArray:
+def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh: Any = None) -> xr.DataArray:
     """Evaluate a reference curve (e.g. a DAC) at the depth of every position.
 
     The curve is interpolated linearly in dB between its points (a DAC of an
@@ -177,10 +178,12 @@ def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh
     ----------
     depth_map : xarray.DataArray (scan, index)
         Depth of the gate event, mm.
-    curve_depth_mm : array_like
-        Depths of the curve points, mm, strictly increasing.
+    curve_depth_mm : array_like or DacCurve
+        Depths of the curve points, mm, strictly increasing; or a
+        :class:`ndtmap.signal.DacCurve`, whose own rule then applies outside
+        its depths (refused depths raise, as for points).
     curve_fsh : array_like
-        Reference amplitude at those depths, %FSH (> 0).
+        Reference amplitude at those depths, %FSH (> 0); not with a DacCurve.
 
     Returns
     -------
@@ -200,6 +203,10 @@ def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh
     [[80.0, 20.0]]
     """
     dm = mg.as_map("depth_map", depth_map)
+    if isinstance(curve_depth_mm, DacCurve):
+        if curve_fsh is not None:
+            raise ParameterError("give either a DacCurve or the points `curve_depth_mm` and `curve_fsh`, not both")
+        return _reference_from_dac(dm, depth_map, curve_depth_mm)
     try:
         z = np.asarray(curve_depth_mm, dtype=np.float64).reshape(-1)
         a = np.asarray(curve_fsh, dtype=np.float64).reshape(-1)
@@ -232,6 +239,25 @@ def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh
         dims=mg.MAP_DIMS,
         coords={"scan": dm.coords["scan"], "index": dm.coords["index"]},
         attrs={**dict(depth_map.attrs), "units": "%FSH", "long_name": "reference level at the gate depth"},
+    )
+
+
+def _reference_from_dac(dm: xr.DataArray, depth_map: xr.DataArray, curve: DacCurve) -> xr.DataArray:
+    """:func:`reference_from_curve` for a DacCurve: its level at every known depth, by its own outside rule."""
+    d = dm.values
+    known = np.isfinite(d)
+    out = np.full(d.shape, np.nan)
+    out[known] = curve.level_fsh(d[known])
+    refused = known & ~np.isfinite(out)
+    if refused.any():
+        lo, hi = curve.range_mm
+        raise CalibrationError(
+            f"depths from {np.nanmin(d[refused]):g} to {np.nanmax(d[refused]):g} mm lie outside the reference "
+            f"curve ({lo:g} to {hi:g} mm), which refuses them; extend the curve or narrow the gate"
+        )
+    return xr.DataArray(
+        out, dims=mg.MAP_DIMS, coords={"scan": dm.coords["scan"], "index": dm.coords["index"]},
+        attrs={**dict(depth_map.attrs), "units": "%FSH", "long_name": f"{curve.label} level at the gate depth"},
     )
 
 

@@ -376,3 +376,17 @@ def test_workbench_view_opens_on_a_level_re_the_dac():
     assert wb.controls["threshold"].disabled  # the level is in dB re the DAC, not one %FSH value
     wb.controls["end"].value = 50.0  # a window change keeps the level re the DAC
     assert wb.state.gate("flaw").end == 50.0 and wb.state.gate("flaw").level_re_curve
+
+
+def test_reference_from_curve_takes_a_dac_curve_with_its_rule():
+    from helpers.sizing_maps import make_map
+
+    from ndtmap.indications import reference_from_curve
+
+    depth = make_map(np.array([[5.0, 30.0, 60.0]]), np.arange(1.0), np.arange(3.0), units="mm")
+    ref = reference_from_curve(depth, dac_curve([10.0, 50.0], [80.0, 20.0], outside="conservative"))
+    # by hand: 5 mm holds 80 (lower than 80 * 4^(5/40) = 95.1); 30 mm: 80 * (1/4)^(20/40) = 40;
+    # 60 mm: 20 * (1/4)^(10/40) = 14.14 (lower than 20 held)
+    np.testing.assert_allclose(ref.values, [[80.0, 40.0, 14.142]], atol=1e-3)
+    with pytest.raises(ndtmap.CalibrationError, match="refuses"):
+        reference_from_curve(depth, dac_curve([10.0, 50.0], [80.0, 20.0]))

@@ -390,3 +390,22 @@ def test_reference_from_curve_takes_a_dac_curve_with_its_rule():
     np.testing.assert_allclose(ref.values, [[80.0, 40.0, 14.142]], atol=1e-3)
     with pytest.raises(ndtmap.CalibrationError, match="refuses"):
         reference_from_curve(depth, dac_curve([10.0, 50.0], [80.0, 20.0]))
+
+
+def test_cli_dgs_level_from_the_back_wall(tmp_path):
+    # back wall at 44.99 mm read at 80 %FSH; an echo of 40 %FSH at 12.14 mm at the centre; the level is the DGS
+    # curve of a 2 mm FBH set from the back wall (straight beam, 50 % band)
+    a = np.zeros((8, 8, T.size))
+    a[:, :] += _echo(T_DEEP, 80.0)
+    a[3:5, 3:5] += _echo(T_SHALLOW, 40.0)
+    path = tmp_path / "g.nc"
+    save_grid(_grid(a, probe_bandwidth=0.5), path)
+    code, text = _cli(["indications", str(path), "--gate-mm", "5", "40", "--backwall-gate-mm", "40", "50",
+                       "--dgs-fbh-mm", "2", "--threshold-db", "0", "--format", "json"])
+    assert code == 0
+    doc = json.loads(text)
+    assert doc["recording_curve"]["label"] == "DGS 2 mm FBH"
+    [rec] = [r for r in doc["indications"] if r["kind"] == "amplitude"]
+    curve = dgs_recording_curve(2.0, reference_fsh=80.0, reference_depth_mm=_depth(T_DEEP), depths_mm=[5.0, 40.0],
+                                bandwidth=0.5, **PROBE)
+    assert rec["peak_db"] == pytest.approx(20 * math.log10(40.0 / curve.level_fsh(_depth(T_SHALLOW))), abs=0.2)

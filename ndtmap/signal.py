@@ -13,19 +13,42 @@ A DAC curve (:func:`dac_curve`) is recorded from the echoes of equal
 reference reflectors at several depths. Between the recorded depths it is
 interpolated linearly in dB against depth (log-linear in amplitude: an
 exponential fall between two points, which is what attenuation and beam
-spread give over short spans). Outside the recorded depths the curve is
-*refused* by default: the level is NaN and so is every dB value read from
-it, because an extrapolated reference level is a guess. Pass
-``extrapolate=True`` to continue the end segments in dB. :func:`apply_tcg`
-must give every sample a gain, so outside the recorded range it holds the
-gain of the nearest end point (or extrapolates when the curve does), and
-says so in the result's attributes.
+spread give over short spans). Outside the recorded depths the curve
+follows its rule ``outside`` (:data:`DAC_OUTSIDE_RULES`):
+
+* ``'refuse'`` (the default of :func:`dac_curve`): the level is NaN and so
+  is every dB value read from it, because an extrapolated reference level is
+  a guess; a gate evaluated re the DAC refuses a window that leaves the
+  recorded range;
+* ``'extrapolate'`` (``extrapolate=True``): the end segments continued in dB;
+* ``'conservative'`` (the default of :meth:`DacCurve.from_csv` and of the
+  command line): the *lower* of the end level held and the end segment
+  continued in dB, so the recording level is never raised above what a
+  reference reflector showed (detection errs towards recording more, the
+  amplitude re DAC towards reading higher).
+
+A table is read from CSV by :meth:`DacCurve.from_csv` (header
+``depth_mm,amplitude_fsh``). :func:`apply_tcg` must give every sample a gain,
+so outside the recorded range it holds the gain of the nearest end point
+(or follows the curve's rule when that is not 'refuse'), and says so in the
+result's attributes.
+
+Clipping
+--------
+The digitiser clips at ``digitiser_full_scale_fsh`` (grid attribute,
+default 100 %FSH). :func:`apply_tcg` scales samples after digitising, so
+an amplified sample above the full scale is not clipped and an attenuated
+clipped one stays clipped: it adds the boolean variable ``clipped`` (scan,
+index, time), True where the recorded sample reached the full scale
+(:func:`clipped_samples`), carried through later steps; gates read it.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+import os
+from dataclasses import dataclass, replace
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -35,7 +58,7 @@ from scipy import signal as sps
 
 from ndtmap._shared.arrays import whole_time
 from ndtmap._shared.validate import one_of, positive_float, positive_int
-from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
+from ndtmap.errors import CalibrationError, NdtmapError, ParameterError, ParameterTypeError
 from ndtmap.grid.geometry import part_constants
 from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import ascan_in_fsh, check_grid, replace_ascan
@@ -47,8 +70,12 @@ __all__ = [
     "bandpass",
     "smooth",
     "detected_signal",
+    "DAC_OUTSIDE_RULES",
     "DacCurve",
     "dac_curve",
+    "clipped_samples",
+    "full_scale_fsh",
+    "detected_re_curve",
     "apply_tcg",
     "db_re",
     "db_re_dac",
@@ -56,6 +83,10 @@ __all__ = [
 
 #: How a gate, map or section turns the A-scan into a detection signal.
 DETECTIONS = ("rectified", "envelope", "none")
+#: What a DAC gives outside its recorded depths (see the module notes).
+DAC_OUTSIDE_RULES = ("refuse", "extrapolate", "conservative")
+#: A sample within this fraction below the digitiser full scale counts as clipped.
+CLIP_RTOL = 1e-3
 
 
 # --------------------------------------------------------------------------- kernels (numpy, along the last axis)
@@ -467,9 +498,9 @@ def db_re(amplitude_fsh: Any, reference_fsh: Any) -> Any:
 
 
 def _dac_kernel(depth: np.ndarray, depths: np.ndarray, levels_db: np.ndarray, mode: str) -> np.ndarray:
-    """DAC level in dB re 1 %FSH at `depth`; `mode` 'refuse' (NaN outside), 'extrapolate' or 'hold'."""
+    """DAC level in dB re 1 %FSH at `depth`; `mode` 'refuse' (NaN outside), 'extrapolate', 'hold' or 'conservative'."""
     d = np.asarray(depth, dtype=np.float64)
-    out = np.interp(d, depths, levels_db)
+    out = np.interp(d, depths, levels_db)  # holds the end levels outside
     if mode == "hold":
         return out
     with np.errstate(invalid="ignore"):
@@ -478,13 +509,16 @@ def _dac_kernel(depth: np.ndarray, depths: np.ndarray, levels_db: np.ndarray, mo
         return np.where(below | above, np.nan, out)
     slope_lo = (levels_db[1] - levels_db[0]) / (depths[1] - depths[0])
     slope_hi = (levels_db[-1] - levels_db[-2]) / (depths[-1] - depths[-2])
-    out = np.where(below, levels_db[0] + slope_lo * (d - depths[0]), out)
-    return np.where(above, levels_db[-1] + slope_hi * (d - depths[-1]), out)
+    ext = np.where(below, levels_db[0] + slope_lo * (d - depths[0]), out)
+    ext = np.where(above, levels_db[-1] + slope_hi * (d - depths[-1]), ext)
+    if mode == "extrapolate":
+        return ext
+    return np.minimum(out, ext)  # conservative: the lower of held and continued
 
 
 @dataclass(frozen=True)
 class DacCurve:
-    """A distance-amplitude correction curve.
+    """A distance-amplitude correction curve (or any recording curve of a level against depth).
 
     Attributes
     ----------
@@ -494,12 +528,30 @@ class DacCurve:
         Their echo amplitudes, %FSH (> 0).
     extrapolate : bool
         Whether the curve is continued (linearly in dB) beyond the recorded
-        depths; otherwise its level there is NaN.
+        depths (the same as ``outside='extrapolate'``).
+    outside : {'refuse', 'extrapolate', 'conservative'}, optional
+        The rule beyond the recorded depths (module notes); default
+        'extrapolate' when `extrapolate` is True, else 'refuse'.
+    label : str
+        What the curve is, for people and records (e.g. ``'DAC'`` or
+        ``'DGS 2 mm FBH'``).
     """
 
     depths_mm: tuple[float, ...]
     amplitudes_fsh: tuple[float, ...]
     extrapolate: bool = False
+    outside: str | None = None
+    label: str = "DAC"
+
+    def __post_init__(self) -> None:
+        rule = self.outside
+        if rule is None:
+            rule = "extrapolate" if self.extrapolate else "refuse"
+        one_of("outside", rule, DAC_OUTSIDE_RULES)
+        if self.extrapolate and rule != "extrapolate":
+            raise ParameterError(f"`extrapolate=True` contradicts `outside`={rule!r}; give one of them")
+        object.__setattr__(self, "outside", rule)
+        object.__setattr__(self, "extrapolate", rule == "extrapolate")
 
     @property
     def range_mm(self) -> tuple[float, float]:
@@ -510,8 +562,8 @@ class DacCurve:
         """DAC level in %FSH at `depth_mm` (float, array or DataArray; lazy on dask).
 
         `outside` overrides how depths outside the recorded range are
-        treated: 'refuse' (NaN), 'extrapolate' or 'hold' (level of the
-        nearest end point); default from :attr:`extrapolate`.
+        treated: 'refuse' (NaN), 'extrapolate', 'conservative' or 'hold'
+        (level of the nearest end point); default the curve's own rule.
 
         Examples
         --------
@@ -519,8 +571,8 @@ class DacCurve:
         >>> round(float(dac.level_fsh(20.0)), 3)  # geometric mean of 80 and 20
         40.0
         """
-        mode = outside or ("extrapolate" if self.extrapolate else "refuse")
-        one_of("outside", mode, ("refuse", "extrapolate", "hold"))
+        mode = outside or self.outside
+        one_of("outside", mode, (*DAC_OUTSIDE_RULES, "hold"))
         depths = np.asarray(self.depths_mm, dtype=np.float64)
         levels = 20.0 * np.log10(np.asarray(self.amplitudes_fsh, dtype=np.float64))
 
@@ -529,18 +581,106 @@ class DacCurve:
 
         if isinstance(depth_mm, xr.DataArray):
             out = xr.apply_ufunc(kernel, depth_mm, dask="parallelized", output_dtypes=[np.float64])
-            out.attrs = {"units": "%FSH", "long_name": "DAC level"}
+            out.attrs = {"units": "%FSH", "long_name": f"{self.label} level"}
             return out
         out = kernel(np.asarray(depth_mm, dtype=np.float64))
         return float(out) if out.ndim == 0 else out
 
+    def outside_note(self, depth_min_mm: float, depth_max_mm: float) -> str | None:
+        """A sentence for records whose depths leave the recorded range, or None when they stay inside."""
+        lo, hi = self.range_mm
+        tol = 1e-9 * max(1.0, abs(hi))
+        if not (depth_min_mm < lo - tol or depth_max_mm > hi + tol):
+            return None
+        how = {"refuse": "no level (refused)",
+               "extrapolate": "the end segments continued in dB",
+               "conservative": "the lower of the end level held and the end segment continued in dB"}[self.outside]
+        return (f"depths {depth_min_mm:.1f} to {depth_max_mm:.1f} mm leave the {self.label}'s recorded range "
+                f"{lo:g} to {hi:g} mm: its level there is {how}")
+
     def to_dict(self) -> dict[str, Any]:
         """Plain-JSON form (for attributes and provenance)."""
         return {"depths_mm": list(self.depths_mm), "amplitudes_fsh": list(self.amplitudes_fsh),
-                "extrapolate": self.extrapolate}
+                "extrapolate": self.extrapolate, "outside": self.outside, "label": self.label}
+
+    @classmethod
+    def from_csv(cls, path: str | os.PathLike[str], *, outside: str = "conservative", label: str = "DAC") -> DacCurve:
+        """Read a DAC table from a CSV file with the header ``depth_mm,amplitude_fsh``.
+
+        One reference echo per line: its depth (mm) and its amplitude
+        (%FSH, > 0); depths strictly increasing, at least two lines. Blank
+        lines and lines starting with ``#`` are skipped.
+
+        Parameters
+        ----------
+        path : str or path-like
+            The CSV file.
+        outside : {'conservative', 'extrapolate', 'refuse'}, default 'conservative'
+            The rule beyond the table's depths (module notes).
+        label : str, default 'DAC'
+
+        Raises
+        ------
+        CalibrationError
+            The file is missing or unreadable, the header is not
+            ``depth_mm,amplitude_fsh``, a value is not a number, depths do not
+            increase, an amplitude is not > 0, fewer than two points.
+
+        Examples
+        --------
+        >>> import tempfile, pathlib
+        >>> p = pathlib.Path(tempfile.mkdtemp()) / "dac.csv"
+        >>> _ = p.write_text("depth_mm,amplitude_fsh\\n10,80\\n50,20\\n")
+        >>> DacCurve.from_csv(p).amplitudes_fsh
+        (80.0, 20.0)
+        """
+        depths, amps = _read_dac_csv(Path(path))
+        d = np.asarray(depths)
+        if d.size >= 2 and np.any(np.diff(d) <= 0):
+            k = int(np.flatnonzero(np.diff(d) <= 0)[0])
+            raise CalibrationError(
+                f"DAC file {str(path)!r}: `depth_mm` must increase from line to line, got {d[k]:g} then {d[k + 1]:g} "
+                "mm; sort the points by depth and give each depth once"
+            )
+        curve = dac_curve(depths, amps, outside=outside, source=f"DAC file {str(path)!r}")
+        return replace(curve, label=str(label))
 
 
-def dac_curve(depths_mm: Any, amplitudes_fsh: Any, *, extrapolate: bool = False) -> DacCurve:
+def _read_dac_csv(path: Path) -> tuple[list[float], list[float]]:
+    """The (depth, amplitude) columns of a DAC CSV file, checked line by line."""
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise CalibrationError(f"DAC file {str(path)!r} does not exist; give the path of a CSV file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise CalibrationError(f"cannot read DAC file {str(path)!r}: {exc}") from None
+    rows = [(n, line.strip()) for n, line in enumerate(text.splitlines(), 1)]
+    rows = [(n, line) for n, line in rows if line and not line.startswith("#")]
+    header = [c.strip().lower() for c in rows[0][1].split(",")] if rows else []
+    if header != ["depth_mm", "amplitude_fsh"]:
+        got = rows[0][1] if rows else "an empty file"
+        raise CalibrationError(
+            f"DAC file {str(path)!r}: the first line must be the header 'depth_mm,amplitude_fsh', got {got!r}"
+        )
+    depths: list[float] = []
+    amps: list[float] = []
+    for n, line in rows[1:]:
+        cells = [c.strip() for c in line.split(",")]
+        try:
+            if len(cells) != 2:
+                raise ValueError
+            z, a = float(cells[0]), float(cells[1])
+        except ValueError:
+            raise CalibrationError(
+                f"DAC file {str(path)!r} line {n}: expected two numbers 'depth_mm,amplitude_fsh', got {line!r}"
+            ) from None
+        depths.append(z)
+        amps.append(a)
+    return depths, amps
+
+
+def dac_curve(depths_mm: Any, amplitudes_fsh: Any, *, extrapolate: bool = False, outside: str | None = None,
+              source: str = "") -> DacCurve:
     """Build a DAC curve from reference echoes at several depths.
 
     Parameters
@@ -552,7 +692,12 @@ def dac_curve(depths_mm: Any, amplitudes_fsh: Any, *, extrapolate: bool = False)
         Their peak echo amplitudes, %FSH, > 0, same length.
     extrapolate : bool, default False
         Continue the curve beyond the recorded depths linearly in dB (else
-        its level there is NaN: refused).
+        its level there follows `outside`).
+    outside : {'refuse', 'extrapolate', 'conservative'}, optional
+        The rule beyond the recorded depths; default 'refuse' (NaN), or
+        'extrapolate' with ``extrapolate=True``.
+    source : str, optional
+        Where the points come from, named in error messages.
 
     Returns
     -------
@@ -570,28 +715,34 @@ def dac_curve(depths_mm: Any, amplitudes_fsh: Any, *, extrapolate: bool = False)
     >>> dac.range_mm
     (10.0, 40.0)
     """
+    where = f"{source}: " if source else ""
     try:
         d = np.asarray(depths_mm, dtype=np.float64).ravel()
         a = np.asarray(amplitudes_fsh, dtype=np.float64).ravel()
     except (TypeError, ValueError):
         raise CalibrationError(
-            f"`depths_mm` and `amplitudes_fsh` must be sequences of numbers, got {depths_mm!r} and {amplitudes_fsh!r}"
+            f"{where}`depths_mm` and `amplitudes_fsh` must be sequences of numbers, got {depths_mm!r} and "
+            f"{amplitudes_fsh!r}"
         ) from None
     if d.size != a.size:
         raise CalibrationError(
-            f"`depths_mm` and `amplitudes_fsh` must have the same length, got {d.size} and {a.size}"
+            f"{where}`depths_mm` and `amplitudes_fsh` must have the same length, got {d.size} and {a.size}"
         )
     if d.size < 2:
-        raise CalibrationError(f"a DAC needs at least two reference echoes, `depths_mm` has {d.size}")
+        raise CalibrationError(f"{where}a DAC needs at least two reference echoes, `depths_mm` has {d.size}")
     if not (np.all(np.isfinite(d)) and np.all(np.isfinite(a))):
-        raise CalibrationError(f"`depths_mm` and `amplitudes_fsh` must be finite, got {d.tolist()} and {a.tolist()}")
+        raise CalibrationError(
+            f"{where}`depths_mm` and `amplitudes_fsh` must be finite, got {d.tolist()} and {a.tolist()}")
     if np.any(a <= 0):
-        raise CalibrationError(f"`amplitudes_fsh` must all be greater than 0 %FSH, got {a.tolist()}")
+        raise CalibrationError(f"{where}`amplitudes_fsh` must all be greater than 0 %FSH, got {a.tolist()}")
     order = np.argsort(d, kind="stable")
     d, a = d[order], a[order]
     if np.any(np.diff(d) == 0):
-        raise CalibrationError(f"`depths_mm` must not repeat a depth, got {np.asarray(depths_mm).tolist()}")
-    return DacCurve(tuple(d.tolist()), tuple(a.tolist()), bool(extrapolate))
+        raise CalibrationError(f"{where}`depths_mm` must not repeat a depth, got {np.asarray(depths_mm).tolist()}")
+    try:
+        return DacCurve(tuple(d.tolist()), tuple(a.tolist()), bool(extrapolate), outside)
+    except NdtmapError as exc:
+        raise CalibrationError(f"{where}{exc}") from None
 
 
 def db_re_dac(amplitude_fsh: Any, depth_mm: Any, dac: DacCurve) -> Any:
@@ -617,15 +768,99 @@ def db_re_dac(amplitude_fsh: Any, depth_mm: Any, dac: DacCurve) -> Any:
     return float(out) if np.ndim(out) == 0 else out
 
 
+def full_scale_fsh(grid: xr.Dataset) -> float:
+    """The digitiser's full scale (clipping level) of a grid, %FSH: ``digitiser_full_scale_fsh``, default 100.
+
+    Examples
+    --------
+    >>> from ndtmap.grid.examples import example_grid
+    >>> full_scale_fsh(example_grid())
+    100.0
+    """
+    value = grid.attrs.get("digitiser_full_scale_fsh")
+    if value is None:
+        return 100.0
+    return positive_float("digitiser_full_scale_fsh", value)
+
+
+def _clip_kernel(x: np.ndarray, level: float) -> np.ndarray:
+    with np.errstate(invalid="ignore"):
+        return np.abs(np.asarray(x)) >= level
+
+
+def clipped_samples(grid: xr.Dataset) -> xr.DataArray:
+    """True at every sample the digitiser clipped: ``|a| >= digitiser_full_scale_fsh`` (within 0.1 %).
+
+    A grid that went through :func:`apply_tcg` carries the mask of its
+    recorded samples as the variable ``clipped``, which is returned as it
+    is: amplified samples above the full scale were not clipped, attenuated
+    clipped samples were. Lazy on dask-backed grids.
+
+    Examples
+    --------
+    >>> from ndtmap.grid.examples import example_grid
+    >>> g = example_grid((4.0,), (150.0,)).assign_attrs(digitiser_full_scale_fsh=200.0)
+    >>> bool(clipped_samples(g).any())      # 150 %FSH on a 200 %FSH digitiser
+    False
+    """
+    grid = check_grid(grid)
+    if "clipped" in grid.data_vars:
+        return grid["clipped"].astype(bool)
+    level = full_scale_fsh(grid) * (1.0 - CLIP_RTOL)
+    out = xr.apply_ufunc(_clip_kernel, ascan_in_fsh(grid), kwargs={"level": level}, dask="parallelized",
+                         output_dtypes=[bool])
+    out.attrs = {"units": "1", "long_name": "sample clipped by the digitiser"}
+    return out.rename("clipped")
+
+
+def _ratio_kernel(x: np.ndarray, inverse_level: np.ndarray) -> np.ndarray:
+    return (np.asarray(x, dtype=np.float32) * inverse_level).astype(np.float32)
+
+
+def detected_re_curve(grid: xr.Dataset, curve: DacCurve, detect: str = "rectified") -> xr.DataArray:
+    """The detection signal divided by a recording curve sample by sample, in % of the curve (100 = at the curve).
+
+    ``100 A(t) / DAC(d(t))`` with ``d(t)`` the depth of each sample from
+    pulse entry (calibration: velocity, beam angle, zero offset): a software
+    TCG by ``1 / DAC``. A gate on it reads the maximum of ``A(t) / DAC(t)``
+    over its window: the amplitude re DAC of the strongest echo *relative to
+    the curve*, wherever it lies in depth. Samples where the curve gives no
+    level (outside its range under the rule 'refuse') are NaN.
+
+    Examples
+    --------
+    >>> from ndtmap.grid.examples import example_grid
+    >>> g = example_grid((4.0,), (40.0,))          # echo at 11.84 mm
+    >>> dac = dac_curve([5.0, 20.0], [80.0, 20.0])
+    >>> r = detected_re_curve(g, dac)
+    >>> round(float(r.max()) / (100 * 40.0 / dac.level_fsh(11.84)), 2)
+    1.0
+    """
+    if not isinstance(curve, DacCurve):
+        raise ParameterTypeError(f"`curve` must be a DacCurve (from dac_curve), got {type(curve).__name__}")
+    pc = part_constants(grid)
+    level = np.asarray(curve.level_fsh(pc.depth_mm(pc.time_us)), dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse = (100.0 / level).astype(np.float32)
+    sig = detected_signal(grid, detect)
+    out = _map_time(sig, _ratio_kernel, inverse_level=inverse)
+    out.attrs = {"units": "% of curve", "long_name": f"A-scan amplitude re {curve.label} ({detect})"}
+    return out
+
+
 def apply_tcg(grid: xr.Dataset, dac: DacCurve, *, target_fsh: float = 80.0) -> xr.Dataset:
     """Time-corrected gain: scale every sample so that the DAC becomes a flat line at `target_fsh`.
 
     The gain of the sample at depth ``d`` (from the calibration: velocity,
     beam angle, zero offset) is ``target / DAC(d)``. Outside the DAC's
     recorded depth range the gain of the nearest end point is held (or the
-    curve is extrapolated when it was built with ``extrapolate=True``);
-    samples before pulse entry take the gain of the first point. No
-    clipping at the digitiser's full scale is applied.
+    curve's rule is followed when it is 'extrapolate' or 'conservative');
+    samples before pulse entry take the gain of the first point. The gain is
+    applied after digitising: amplified samples may exceed the digitiser's
+    full scale without being clipped, and samples the digitiser clipped stay
+    clipped whatever the gain. The result carries the boolean variable
+    ``clipped`` (scan, index, time) of the recorded samples
+    (:func:`clipped_samples`), which gates read for ``saturated``.
 
     Parameters
     ----------
@@ -651,6 +886,8 @@ def apply_tcg(grid: xr.Dataset, dac: DacCurve, *, target_fsh: float = 80.0) -> x
     >>> level = float(dac.level_fsh(11.84))
     >>> round(float(out.ascan.max()) / (40.0 * 80.0 / level), 3)
     1.0
+    >>> bool(out.clipped.any())
+    False
     """
     grid = check_grid(grid)
     if not isinstance(dac, DacCurve):
@@ -658,15 +895,19 @@ def apply_tcg(grid: xr.Dataset, dac: DacCurve, *, target_fsh: float = 80.0) -> x
     target = positive_float("target_fsh", target_fsh)
     pc = part_constants(grid)
     depth = pc.depth_mm(pc.time_us)
-    level = dac.level_fsh(depth, outside="extrapolate" if dac.extrapolate else "hold")
+    rule = "hold" if dac.outside == "refuse" else dac.outside
+    level = dac.level_fsh(depth, outside=rule)
     gain = (target / level).astype(np.float32)
     gain_da = xr.DataArray(gain, dims=("time",), coords={"time": grid["time"]})
+    clipped = clipped_samples(grid).transpose("scan", "index", "time")
     out = ascan_in_fsh(grid) * gain_da
     gain_db = 20.0 * np.log10(gain.astype(np.float64))
+    outside_text = {"hold": "gain of the nearest DAC point held", "extrapolate": "extrapolated",
+                    "conservative": "the higher of the gains held and extrapolated"}[rule]
     res = replace_ascan(
         grid, out, tcg_target_fsh=target, tcg_gain_db_min=float(gain_db.min()), tcg_gain_db_max=float(gain_db.max()),
-        tcg_outside_dac=("extrapolated" if dac.extrapolate else "gain of the nearest DAC point held"),
+        tcg_outside_dac=outside_text,
     )
+    res["clipped"] = xr.Variable(("scan", "index", "time"), clipped.data,
+                                 attrs={"units": "1", "long_name": "recorded sample clipped by the digitiser"})
     return with_step(res, "tcg", {"dac": dac.to_dict(), "target_fsh": target}, source=grid)
-
-

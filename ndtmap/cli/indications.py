@@ -1,8 +1,9 @@
 """The ``ndtmap indications`` command: detect and size indications, print a table, CSV or JSON.
 
 The settings come either from a procedure file (``--procedure``) or from the
-options (``--gate-mm`` and ``--threshold-fsh``, optionally a back-wall gate and
-screening rules), never from both.
+options (``--gate-mm`` and ``--threshold-fsh``, or ``--threshold-db`` in dB re
+a DAC from ``--dac FILE`` or a DGS curve from ``--dgs-fbh-mm``; optionally a
+back-wall gate and screening rules), never from both.
 """
 
 from __future__ import annotations
@@ -24,14 +25,24 @@ __all__ = ["register", "cmd_indications"]
 def _procedure(args: argparse.Namespace) -> Any:
     """The procedure the options describe: the file of ``--procedure`` or one built from the gate options."""
     from ndtmap.procedure import load_procedure, procedure_from_options  # imported on use
+    from ndtmap.signal import DacCurve
 
+    level_options = (args.gate_mm, args.threshold_fsh, args.threshold_db, args.dac, args.dgs_fbh_mm)
     if args.procedure is not None:
-        if args.gate_mm is not None or args.threshold_fsh is not None:
-            raise NdtmapError("give either --procedure or --gate-mm/--threshold-fsh, not both")
+        if any(v is not None for v in level_options):
+            raise NdtmapError("give either --procedure or --gate-mm with its level (--threshold-fsh, or --threshold-db "
+                              "with --dac/--dgs-fbh-mm), not both")
         return load_procedure(args.procedure)
-    if args.gate_mm is None or args.threshold_fsh is None:
-        raise NdtmapError("--gate-mm START END and --threshold-fsh PCT are required (or --procedure FILE)")
+    if args.gate_mm is None or (args.threshold_fsh is None) == (args.threshold_db is None):
+        raise NdtmapError("--gate-mm START END and one of --threshold-fsh PCT or --threshold-db DB (with --dac FILE "
+                          "or --dgs-fbh-mm D) are required (or --procedure FILE)")
+    if args.dgs_fbh_mm is not None and args.backwall_gate_mm is None:
+        raise NdtmapError("--dgs-fbh-mm sets the gain from the back-wall echo: give --backwall-gate-mm START END too")
+    dac = None if args.dac is None else DacCurve.from_csv(args.dac, outside=args.dac_outside)
     return procedure_from_options(
+        threshold_db=args.threshold_db,
+        dac=dac,
+        dgs_fbh_mm=args.dgs_fbh_mm,
         gate_mm=args.gate_mm,
         threshold_fsh=args.threshold_fsh,
         mode=args.mode,
@@ -92,6 +103,16 @@ def register(subparsers: Any) -> None:
         metavar=("START", "END"),
         help="back-wall gate, depth mm (DGS reference, back-wall loss)",
     )
+    p.add_argument("--threshold-db", type=float, metavar="DB",
+                   help="detection level in dB re the DAC (--dac) or DGS curve (--dgs-fbh-mm); 0 is 100 %% of it")
+    p.add_argument("--dac", type=Path, metavar="FILE",
+                   help="DAC points: CSV with the header depth_mm,amplitude_fsh (linear in dB between them)")
+    p.add_argument("--dac-outside", default="conservative", choices=("conservative", "extrapolate", "refuse"),
+                   help="the DAC beyond its depths: the lower of end level held and end segment continued "
+                   "(conservative), the end segments continued in dB, or refused")
+    p.add_argument("--dgs-fbh-mm", type=float, metavar="D",
+                   help="DGS recording level: the curve of an equivalent flat-bottom hole of D mm, gain set from "
+                   "the back-wall echo (needs --backwall-gate-mm; the grid's probe attributes)")
     p.add_argument("--rules", metavar="FILE", help="screening rules (TOML)")
     p.add_argument("--procedure", type=Path, metavar="FILE", help="a procedure file instead of the options above")
     p.add_argument("--mode", default="peak", choices=("peak", "first-crossing"), help="gate detection mode")

@@ -55,6 +55,26 @@ Record limits
 
 Missing A-scans give NaN and ``triggered=False``, never a number.
 
+Amplitude re a recording curve (DAC)
+    With a curve (``dac=``, :class:`ndtmap.signal.DacCurve`) the gate is also
+    run on ``100 A(t) / DAC(d(t))`` (:func:`ndtmap.signal.detected_re_curve`,
+    a software TCG by 1/DAC, depth from pulse entry): ``amplitude_db_re_dac``
+    is ``20 log10`` of the maximum of ``A(t) / DAC(t)`` over the window, so a
+    deep echo above the curve is not hidden by a stronger shallow one below
+    it. A gate whose level is in dB re the DAC (``reference='dac'``) is
+    evaluated on that signal only: it triggers where the ratio reaches its
+    level, its event is where the ratio peaks, and ``amplitude_fsh`` is the
+    A-scan amplitude there. A window that leaves the curve's recorded depths
+    is refused when the curve's rule is 'refuse'.
+
+Clipping
+    ``clipped`` (scan, index): the echo of the event reached the digitiser
+    full scale (``digitiser_full_scale_fsh``, default 100 %FSH) in the
+    recorded samples. On a grid from :func:`ndtmap.signal.apply_tcg` it is
+    read from the grid's ``clipped`` mask within half a probe period of the
+    event (a gain after digitising neither clips nor unclips); otherwise it
+    is ``amplitude_fsh >= full scale`` (within 0.1 %).
+
 Implementation
     All outputs of a gate come from one read of the gated window. The
     default kernel ('compiled', numba) reads the recorded samples (int16
@@ -78,7 +98,7 @@ import xarray as xr
 
 from ndtmap._shared.arrays import is_lazy, netcdf_safe, result_attrs, whole_time
 from ndtmap._shared.validate import one_of, positive_float
-from ndtmap.errors import GateError, ParameterError, ParameterTypeError
+from ndtmap.errors import CalibrationError, GateError, ParameterError, ParameterTypeError
 from ndtmap.gates.gate import Gate, gate_chain, gate_table
 from ndtmap.gates.kernels import (
     choose_kernel,
@@ -90,7 +110,15 @@ from ndtmap.gates.kernels import (
 from ndtmap.grid.geometry import part_constants
 from ndtmap.grid.provenance import with_step
 from ndtmap.grid.schema import check_grid, grid_attr, missing_ascans
-from ndtmap.signal import DETECTIONS, DacCurve, db_re, db_re_dac, detected_signal
+from ndtmap.signal import (
+    CLIP_RTOL,
+    DETECTIONS,
+    DacCurve,
+    db_re,
+    detected_re_curve,
+    detected_signal,
+    full_scale_fsh,
+)
 
 __all__ = [
     "evaluate_gate",
@@ -118,6 +146,24 @@ class _Raw:
     outside: xr.DataArray | None = None
     window_start: xr.DataArray | None = None
     window_end: xr.DataArray | None = None
+    event: xr.DataArray | None = None  # event time before masking by `triggered` (for the clipped state)
+    base: int = 0  # first sample of the array the sample numbers of the window count from
+    ratio: xr.DataArray | None = None  # peak of 100 A/DAC over the window, % of the curve (with a curve)
+    level: xr.DataArray | None = None  # the curve's level where the ratio peaks, %FSH (gate with a level re DAC)
+
+
+def _clipped_near(mask: np.ndarray, sample: np.ndarray, *, before: int, after: int) -> np.ndarray:
+    """True where `mask` holds a True sample from ``sample - before`` to ``sample + after`` (NaN sample: False)."""
+    mask = np.asarray(mask, dtype=bool)
+    n = mask.shape[-1]
+    counts = np.concatenate([np.zeros(mask.shape[:-1] + (1,), np.int64), np.cumsum(mask, axis=-1)], axis=-1)
+    s = np.asarray(sample, dtype=np.float64)
+    known = np.isfinite(s)
+    centre = np.where(known, np.round(np.where(known, s, 0.0)), 0.0).astype(np.int64)
+    lo = np.clip(centre - before, 0, n)[..., None]
+    hi = np.clip(centre + after + 1, 0, n)[..., None]
+    found = (np.take_along_axis(counts, hi, axis=-1) - np.take_along_axis(counts, lo, axis=-1))[..., 0] > 0
+    return found & known
 
 
 class _Evaluator:
@@ -133,8 +179,12 @@ class _Evaluator:
     """
 
     def __init__(self, grid: xr.Dataset, table: dict[str, Gate], detect: str, echo_hold_us: float | None,
-                 kernel: str | None = None) -> None:
+                 kernel: str | None = None, curve: DacCurve | None = None) -> None:
         self.grid = grid
+        if curve is not None and not isinstance(curve, DacCurve):
+            raise ParameterTypeError(f"`dac` must be a DacCurve (from dac_curve), got {type(curve).__name__}")
+        self.curve = curve
+        self._ratio: xr.DataArray | None = None
         self.table = table
         self.detect = one_of("detect", detect, DETECTIONS[:2])
         self.kernel = choose_kernel(kernel)
@@ -174,18 +224,25 @@ class _Evaluator:
         """
         return self.kernel == "compiled" and self.detect == "rectified"
 
-    def ok_mask(self) -> xr.DataArray | None:
+    @property
+    def ratio_signal(self) -> xr.DataArray:
+        """100 A(t) / DAC(t), % of the recording curve (software TCG by 1/DAC)."""
+        if self._ratio is None:
+            self._ratio = detected_re_curve(self.grid, self.curve, self.detect)
+        return self._ratio
+
+    def ok_mask(self, ratio: bool = False) -> xr.DataArray | None:
         """Positions whose results stand (not missing), or None when the kernel has already masked them."""
-        if not self.reads_record:
+        if ratio or not self.reads_record:
             return ~self.missing
         if "missing" in self.grid.data_vars:
             return ~self.grid["missing"].astype(bool)
         return None
 
-    def _compiled_input(self) -> tuple[xr.DataArray, dict[str, Any]]:
+    def _compiled_input(self, ratio: bool = False) -> tuple[xr.DataArray, dict[str, Any]]:
         """The array the compiled kernel reads and its per-sample conversion."""
-        if not self.reads_record:
-            sig = whole_time(self.signal)
+        if ratio or not self.reads_record:
+            sig = whole_time(self.ratio_signal if ratio else self.signal)
             return sig, {"scale": 1.0, "rectify": False, "check_record": False, "threads": threads_for(sig)}
         a = self.grid["ascan"]
         integer = np.issubdtype(a.dtype, np.integer)
@@ -195,6 +252,21 @@ class _Evaluator:
         a.attrs = {"units": "%FSH", "long_name": f"A-scan amplitude ({self.detect})"}  # as detected_signal
         a = whole_time(a)
         return a, {"scale": scale, "rectify": rectify, "check_record": not integer, "threads": threads_for(a)}
+
+    def check_curve_range(self, gate: Gate) -> None:
+        """Refuse a window that leaves the recorded depths of a curve whose rule is 'refuse'."""
+        if self.curve.outside != "refuse":
+            return
+        t0, t1 = self.bounds(gate.name)
+        d0, d1 = (float(v) for v in self.pc.depth_mm(np.array([t0, t1])))
+        lo, hi = self.curve.range_mm
+        tol = 1e-6 * max(1.0, abs(hi))
+        if d0 < lo - tol or d1 > hi + tol:
+            raise CalibrationError(
+                f"gate {gate.name!r}: its window reaches depths {d0:.4g} to {d1:.4g} mm, outside the "
+                f"{self.curve.label}'s recorded range {lo:g} to {hi:g} mm, and the curve refuses to extrapolate; "
+                "narrow the gate, add reference points, or build the curve with outside='conservative' or 'extrapolate'"
+            )
 
     def relative_us(self, gate: Gate) -> tuple[float, float]:
         if gate.unit == "us":
@@ -254,6 +326,58 @@ class _Evaluator:
     def _sample(self, t: Any, rounding: Any) -> Any:
         return rounding((t - self.t_first) / self.pc.dt_us + (_EPS if rounding is np.floor else -_EPS))
 
+    def _run(self, gate: Gate, threshold: float, ratio: bool) -> tuple[Any, tuple[float, float], Any, Any, Any, int]:
+        """The kernel's four outputs over the gate's window, on the detection signal or on 100 A/DAC (`ratio`)."""
+        dt = self.pc.dt_us
+        kwargs: dict[str, Any] = {"dt_us": dt, "threshold": threshold, "hold": self.hold}
+        outside = w_start = w_end = None
+        if gate.follows is None:
+            a, b = self.window_us(gate)
+            i0 = int(max(0, self._sample(a, np.ceil)))
+            i1 = int(min(self.n - 1, self._sample(b, np.floor)))
+            kwargs["t0_us"] = self.t_first + i0 * dt
+            if self.kernel == "compiled":
+                data, conversion = self._compiled_input(ratio)
+                kwargs.update(conversion, base=i0, length=i1 - i0 + 1, start=0.0, end=float(i1 - i0))
+                outs = xr.apply_ufunc(
+                    gate_outputs_compiled, data, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
+                    kwargs=kwargs, dask="allowed",
+                )
+            else:
+                sig = whole_time((self.ratio_signal if ratio else self.signal).isel(time=slice(i0, i1 + 1)))
+                outs = xr.apply_ufunc(
+                    gate_kernel_blocked, sig, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
+                    kwargs=kwargs, dask="parallelized", output_dtypes=[np.float64] * 4,
+                )
+            return outs, (a, b), None, None, None, i0
+        a, b = self.relative_us(gate)
+        lo, hi = self.bounds(gate.name)
+        k0 = int(max(0, math.floor((lo - self.t_first) / dt) - 1))
+        k1 = int(min(self.n - 1, math.ceil((hi - self.t_first) / dt) + 1))
+        ref = self.evaluate(gate.follows).time
+        w_start, w_end = ref + a, ref + b
+        f0 = self._sample(w_start, np.ceil)
+        f1 = self._sample(w_end, np.floor)
+        outside = ref.notnull() & ((f0 < 0) | (f1 > self.n - 1))
+        i0 = (f0 - k0).where(~outside)
+        i1 = (f1 - k0).where(~outside)
+        kwargs["t0_us"] = self.t_first + k0 * dt
+        if self.kernel == "compiled":
+            data, conversion = self._compiled_input(ratio)
+            kwargs.update(conversion, base=k0, length=k1 - k0 + 1)
+            outs = xr.apply_ufunc(
+                gate_outputs_compiled, data, i0, i1, input_core_dims=[["time"], [], []],
+                output_core_dims=[[], [], [], []], kwargs=kwargs, dask="allowed",
+            )
+        else:
+            sig = whole_time((self.ratio_signal if ratio else self.signal).isel(time=slice(k0, k1 + 1)))
+            outs = xr.apply_ufunc(
+                gate_kernel_windows, sig, i0, i1, input_core_dims=[["time"], [], []],
+                output_core_dims=[[], [], [], []], kwargs=kwargs, dask="parallelized",
+                output_dtypes=[np.float64] * 4,
+            )
+        return outs, (a, b), outside, w_start, w_end, k0
+
     def evaluate(self, name: str) -> _Raw:
         if name in self._memo:
             return self._memo[name]
@@ -263,74 +387,73 @@ class _Evaluator:
                 f"gate {name!r} has its level in dB re the back wall ({gate.level_text()}), which is not measured "
                 "yet; give it with Gate.with_reference_fsh(back-wall level in %FSH) or run the gate in a procedure"
             )
-        dt = self.pc.dt_us
-        kwargs: dict[str, Any] = {"dt_us": dt, "threshold": gate.threshold_fsh, "hold": self.hold}
-        outside = w_start = w_end = None
-        if gate.follows is None:
-            a, b = self.window_us(gate)
-            i0 = int(max(0, self._sample(a, np.ceil)))
-            i1 = int(min(self.n - 1, self._sample(b, np.floor)))
-            kwargs["t0_us"] = self.t_first + i0 * dt
-            if self.kernel == "compiled":
-                data, conversion = self._compiled_input()
-                kwargs.update(conversion, base=i0, length=i1 - i0 + 1, start=0.0, end=float(i1 - i0))
-                outs = xr.apply_ufunc(
-                    gate_outputs_compiled, data, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
-                    kwargs=kwargs, dask="allowed",
+        on_curve = gate.level_re_curve
+        if on_curve:
+            if self.curve is None:
+                raise GateError(
+                    f"gate {name!r} has its level in dB re the DAC ({gate.level_text()}); evaluate it with `dac` (a "
+                    "DacCurve) or in a procedure with a [recording] curve"
                 )
-            else:
-                sig = whole_time(self.signal.isel(time=slice(i0, i1 + 1)))
-                outs = xr.apply_ufunc(
-                    gate_kernel_blocked, sig, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
-                    kwargs=kwargs, dask="parallelized", output_dtypes=[np.float64] * 4,
-                )
-            window = (a, b)
+            self.check_curve_range(gate)
+            threshold = 100.0 * 10.0 ** (float(gate.threshold_db) / 20.0)
         else:
-            a, b = self.relative_us(gate)
-            lo, hi = self.bounds(name)
-            k0 = int(max(0, math.floor((lo - self.t_first) / dt) - 1))
-            k1 = int(min(self.n - 1, math.ceil((hi - self.t_first) / dt) + 1))
-            ref = self.evaluate(gate.follows).time
-            w_start, w_end = ref + a, ref + b
-            f0 = self._sample(w_start, np.ceil)
-            f1 = self._sample(w_end, np.floor)
-            outside = ref.notnull() & ((f0 < 0) | (f1 > self.n - 1))
-            i0 = (f0 - k0).where(~outside)
-            i1 = (f1 - k0).where(~outside)
-            kwargs["t0_us"] = self.t_first + k0 * dt
-            if self.kernel == "compiled":
-                data, conversion = self._compiled_input()
-                kwargs.update(conversion, base=k0, length=k1 - k0 + 1)
-                outs = xr.apply_ufunc(
-                    gate_outputs_compiled, data, i0, i1, input_core_dims=[["time"], [], []],
-                    output_core_dims=[[], [], [], []], kwargs=kwargs, dask="allowed",
-                )
-            else:
-                sig = whole_time(self.signal.isel(time=slice(k0, k1 + 1)))
-                outs = xr.apply_ufunc(
-                    gate_kernel_windows, sig, i0, i1, input_core_dims=[["time"], [], []],
-                    output_core_dims=[[], [], [], []], kwargs=kwargs, dask="parallelized",
-                    output_dtypes=[np.float64] * 4,
-                )
-            window = (a, b)
+            threshold = float(gate.threshold_fsh)
+        outs, window, outside, w_start, w_end, base = self._run(gate, threshold, on_curve)
         peak, peak_time, cross_time, cross_peak = outs
         if gate.mode == "peak":
-            trig = peak >= gate.threshold_fsh
+            trig = peak >= threshold
             amp = peak
             time = peak_time
+            event = peak_time
         else:
             trig = cross_time.notnull()
             amp = cross_peak.where(trig, peak)
             time = cross_time
-        ok = self.ok_mask()
+            event = cross_time.where(trig, peak_time)
+        ratio = None
+        level = None
+        if on_curve:  # the amplitude re the curve, and the A-scan amplitude where the ratio peaks
+            ratio = amp
+            level = self.curve.level_fsh(self.pc.depth_mm(event))
+            amp = ratio / 100.0 * level
+        ok = self.ok_mask(on_curve)
         if ok is not None:
             amp = amp.where(ok)
             trig = trig & ok
+            ratio = None if ratio is None else ratio.where(ok)
         trig = trig.astype(bool)
         time = time.where(trig)
-        raw = _Raw(amp, trig, time, window, outside, w_start, w_end)
+        raw = _Raw(amp, trig, time, window, outside, w_start, w_end, event=event, base=base, ratio=ratio,
+                   level=None if level is None else level.where(amp.notnull()))
         self._memo[name] = raw
         return raw
+
+    def ratio_peak(self, name: str) -> xr.DataArray:
+        """Maximum of 100 A(t)/DAC(t) over the window of gate `name` (% of the curve), NaN where missing."""
+        raw = self.evaluate(name)
+        if raw.ratio is None:
+            gate = self.table[name]
+            self.check_curve_range(gate)
+            outs = self._run(gate, math.inf, True)[0]
+            ok = self.ok_mask(True)
+            raw.ratio = outs[0] if ok is None else outs[0].where(ok)
+        return raw.ratio
+
+    def clipped(self, name: str) -> xr.DataArray:
+        """Whether the echo of the event reached the digitiser full scale in the recorded samples."""
+        raw = self.evaluate(name)
+        if "clipped" not in self.grid.data_vars:
+            level = full_scale_fsh(self.grid) * (1.0 - CLIP_RTOL)
+            return (raw.amplitude >= level).fillna(False).astype(bool)
+        mask = whole_time(self.grid["clipped"].astype(bool))
+        half = max(1, int(round(0.5 * self.echo_hold_us / self.pc.dt_us)))
+        after = half + (self.hold if self.table[name].mode == "first-crossing" else 0)
+        sample = (raw.event - self.t_first) / self.pc.dt_us
+        out = xr.apply_ufunc(
+            _clipped_near, mask, sample, input_core_dims=[["time"], []], kwargs={"before": half, "after": after},
+            dask="parallelized", output_dtypes=[bool],
+        )
+        return out
 
     def reference_time(self, name: str, depth_from: str) -> tuple[Any, str]:
         gate = self.table[name]
@@ -350,7 +473,7 @@ class _Evaluator:
         return self.evaluate(depth_from).time, depth_from
 
     def dataset(self, name: str, *, depth_from: str = "auto", reference_fsh: float | None = None,
-                dac: DacCurve | None = None) -> xr.Dataset:
+                strict: bool = True) -> xr.Dataset:
         gate = self.table[name]
         raw = self.evaluate(name)
         t_ref, ref_name = self.reference_time(name, depth_from)
@@ -373,12 +496,25 @@ class _Evaluator:
             data["amplitude_db"] = db_re(raw.amplitude, ref).assign_attrs(
                 units="dB", long_name=f"{label} amplitude re {ref:g} %FSH")
             extra["reference_fsh"] = ref
-        if dac is not None:
-            if not isinstance(dac, DacCurve):
-                raise ParameterTypeError(f"`dac` must be a DacCurve (from dac_curve), got {type(dac).__name__}")
-            data["amplitude_db_re_dac"] = db_re_dac(raw.amplitude, data["depth_mm"], dac).assign_attrs(
-                units="dB", long_name=f"{label} amplitude re DAC")
-            extra["dac"] = json.dumps(dac.to_dict())
+        data["clipped"] = self.clipped(name).assign_attrs(
+            units="1", long_name=f"{label} echo clipped by the digitiser")
+        if self.curve is not None:
+            try:
+                ratio = self.ratio_peak(name)
+            except CalibrationError as exc:  # a window beyond a refusing curve: only the gate asked for raises
+                if strict or gate.level_re_curve:
+                    raise
+                ratio = None
+                extra["dac_note"] = f"no amplitude re the curve: {exc}"
+            if ratio is not None:
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    db = 20.0 * np.log10(ratio / 100.0)
+                data["amplitude_db_re_dac"] = db.assign_attrs(
+                    units="dB", long_name=f"{label} amplitude re {self.curve.label} (maximum of A/DAC over the window)")
+            extra["dac"] = json.dumps(self.curve.to_dict())
+        if raw.level is not None:
+            data["dac_level_fsh"] = raw.level.assign_attrs(
+                units="%FSH", long_name=f"{label} {self.curve.label} level where A/DAC peaks")
         if raw.outside is not None:
             data["window_start_us"] = raw.window_start.assign_attrs(units="us", long_name=f"{label} window start")
             data["window_end_us"] = raw.window_end.assign_attrs(units="us", long_name=f"{label} window end")
@@ -395,7 +531,8 @@ class _Evaluator:
             self.grid,
             gate=json.dumps(gate.to_dict()),
             gate_name=gate.name, gate_start=gate.start, gate_end=gate.end, gate_unit=gate.unit,
-            gate_threshold_fsh=gate.threshold_fsh, gate_mode=gate.mode, gate_follows=netcdf_safe(gate.follows),
+            gate_threshold_fsh=netcdf_safe(gate.threshold_fsh), gate_mode=gate.mode,
+            gate_follows=netcdf_safe(gate.follows),
             detect=self.detect, depth_reference=ref_name, echo_hold_us=self.echo_hold_us, **extra,
         )
         ds = xr.Dataset(data, attrs=attrs)
@@ -439,7 +576,9 @@ def evaluate_gate(
     reference_fsh : float, optional
         Adds ``amplitude_db``, the amplitude in dB re this level.
     dac : DacCurve, optional
-        Adds ``amplitude_db_re_dac`` at the event depth.
+        The recording curve: adds ``amplitude_db_re_dac``, the maximum of
+        ``A(t) / DAC(t)`` over the window in dB; needed by a gate whose level
+        is in dB re the DAC (``reference='dac'``).
     echo_hold_us : float, optional
         First-crossing mode: how long the signal must stay below the
         threshold to end the crossing echo; default one probe period.
@@ -454,7 +593,8 @@ def evaluate_gate(
     xarray.Dataset on (scan, index)
         ``triggered`` (bool), ``amplitude_fsh`` (NaN where missing),
         ``time_us``, ``sound_path_mm``, ``depth_mm``, ``surface_distance_mm``
-        (NaN where not triggered or missing); for a following gate also
+        (NaN where not triggered or missing), ``clipped`` (bool: the event's
+        echo reached the digitiser full scale); for a following gate also
         ``window_start_us``, ``window_end_us``, ``outside_record``. Attrs: the
         grid's global attributes, the gate definition (``gate`` as JSON and
         ``gate_*`` fields) and a provenance step ``gate``.
@@ -477,8 +617,8 @@ def evaluate_gate(
     table = gate_table(gate, others)
     if not isinstance(depth_from, str):
         raise ParameterTypeError(f"`depth_from` must be text, got {type(depth_from).__name__}")
-    ev = _Evaluator(grid, table, detect, echo_hold_us, kernel)
-    return ev.dataset(gate.name, depth_from=depth_from, reference_fsh=reference_fsh, dac=dac)
+    ev = _Evaluator(grid, table, detect, echo_hold_us, kernel, curve=dac)
+    return ev.dataset(gate.name, depth_from=depth_from, reference_fsh=reference_fsh)
 
 
 def evaluate_gates(
@@ -496,7 +636,10 @@ def evaluate_gates(
 
     Each gate is evaluated once, also when others follow it. Options as in
     :func:`evaluate_gate` (`depth_from` applies to every gate: use 'auto' or
-    'entry' here; `kernel` chooses the implementation).
+    'entry' here; `kernel` chooses the implementation). With a `dac` that
+    refuses depths beyond its points, a gate whose window leaves them (and
+    whose level is not re the DAC) gets no ``amplitude_db_re_dac`` and the
+    attribute ``dac_note`` says why.
 
     Returns
     -------
@@ -520,8 +663,9 @@ def evaluate_gates(
         raise ParameterError("`gates` is empty; give at least one Gate")
     grid = check_grid(grid)
     table = gate_table(gates[0], gates[1:])
-    ev = _Evaluator(grid, table, detect, echo_hold_us, kernel)
-    return {g.name: ev.dataset(g.name, depth_from=depth_from, reference_fsh=reference_fsh, dac=dac) for g in gates}
+    ev = _Evaluator(grid, table, detect, echo_hold_us, kernel, curve=dac)
+    return {g.name: ev.dataset(g.name, depth_from=depth_from, reference_fsh=reference_fsh, strict=False)
+            for g in gates}
 
 
 def gate_window_us(grid: xr.Dataset, gate: Gate) -> tuple[float, float]:

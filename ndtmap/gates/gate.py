@@ -7,7 +7,11 @@ and, for the gate a procedure searches, which positions belong to an
 indication. It is stated either in %FSH (``threshold_fsh``) or in dB re a
 reference (``threshold_db`` with ``reference``: a level in %FSH, or
 ``'backwall'`` for the nominal back-wall echo, which a procedure measures
-before it evaluates the gate; :meth:`Gate.with_reference_fsh`).
+before it evaluates the gate; :meth:`Gate.with_reference_fsh`; or ``'dac'``,
+the recording curve (a DAC from reference reflectors or a DGS curve for an
+equivalent flat-bottom hole, :class:`ndtmap.signal.DacCurve`), which the gate
+is evaluated with: the amplitude re the curve is the maximum of
+``A(t) / DAC(t)`` over the window, 0 dB = 100 % of the curve).
 
 A gate that ``follows`` another opens relative to the other gate's event,
 per A-scan. :func:`gate_chain` is the one place that resolves such chains:
@@ -39,8 +43,9 @@ GATE_UNITS = ("mm", "us")
 GATE_MODES = ("peak", "first-crossing")
 #: The detection level of a gate when none is given, %FSH.
 DEFAULT_THRESHOLD_FSH = 20.0  # common practice, no source: a usual recording level for straight-beam scans
-#: Named references of a level in dB (a number in %FSH is also accepted).
-LEVEL_REFERENCES = ("backwall",)
+#: Named references of a level in dB (a number in %FSH is also accepted): the nominal back-wall echo, the
+#: recording curve (DAC or DGS curve) given with the gate's evaluation.
+LEVEL_REFERENCES = ("backwall", "dac")
 _LEVEL_RTOL = 1e-6
 
 
@@ -68,10 +73,12 @@ class Gate:
     threshold_db : float, optional
         The level in dB re `reference` instead of `threshold_fsh`
         (e.g. -12 dB re the back wall).
-    reference : {'backwall'} or float, optional
-        Reference of `threshold_db`: a level in %FSH, or ``'backwall'``, the
+    reference : {'backwall', 'dac'} or float, optional
+        Reference of `threshold_db`: a level in %FSH, ``'backwall'``, the
         nominal back-wall echo (the gate then has no level in %FSH until
-        :meth:`with_reference_fsh` gives it the measured back-wall level).
+        :meth:`with_reference_fsh` gives it the measured back-wall level),
+        or ``'dac'``, the recording curve the gate is evaluated with (its
+        level in %FSH depends on depth, so `threshold_fsh` stays None).
 
     Raises
     ------
@@ -150,7 +157,8 @@ class Gate:
         ref = self.reference
         if isinstance(ref, str):
             if ref not in LEVEL_REFERENCES:
-                raise GateError(f"gate {self.name!r}: `reference` must be 'backwall' or a level in %FSH, got {ref!r}")
+                raise GateError(
+                    f"gate {self.name!r}: `reference` must be 'backwall', 'dac' or a level in %FSH, got {ref!r}")
             level = None
         elif isinstance(ref, bool) or not isinstance(ref, int | float) or not math.isfinite(ref) or ref <= 0:
             raise GateError(
@@ -163,6 +171,9 @@ class Gate:
         given = self.threshold_fsh
         if given is not None:
             given = self._checked(float_in_range, "threshold_fsh", 0.0, 1000.0, unit="%FSH")
+            if ref == "dac":
+                raise GateError(
+                    f"gate {self.name!r}: a level re the DAC has no single value in %FSH; leave `threshold_fsh` out")
             if level is not None and abs(given - level) > _LEVEL_RTOL * level:
                 raise GateError(
                     f"gate {self.name!r}: `threshold_fsh` {given:g} %FSH contradicts {db:g} dB re {ref:g} %FSH "
@@ -181,14 +192,19 @@ class Gate:
     @property
     def needs_reference(self) -> bool:
         """True while the level is in dB re the back wall and that level is not known yet."""
-        return self.threshold_fsh is None
+        return self.reference == "backwall" and self.threshold_fsh is None
+
+    @property
+    def level_re_curve(self) -> bool:
+        """True when the level is in dB re the recording curve (DAC or DGS curve)."""
+        return self.reference == "dac"
 
     def with_reference_fsh(self, reference_fsh: float) -> Gate:
         """This gate with its level in dB re the back wall turned into %FSH, given the back-wall level.
 
         Gates whose level is already in %FSH are returned unchanged.
         """
-        if self.reference not in LEVEL_REFERENCES:
+        if self.reference != "backwall":
             return self
         ref = self._checked_level_input(reference_fsh)
         return replace(self, threshold_fsh=ref * 10.0 ** (float(self.threshold_db) / 20.0))
@@ -206,7 +222,8 @@ class Gate:
         """The detection level for people: ``'20 %FSH'`` or ``'-12 dB re the back wall (18.8 %FSH)'``."""
         if self.threshold_db is None:
             return f"{self.threshold_fsh:g} %FSH"
-        ref = "the back wall" if self.reference == "backwall" else f"{self.reference:g} %FSH"
+        named = {"backwall": "the back wall", "dac": "the DAC"}
+        ref = named[self.reference] if isinstance(self.reference, str) else f"{self.reference:g} %FSH"
         known = f" ({self.threshold_fsh:.3g} %FSH)" if self.threshold_fsh is not None else ""
         return f"{self.threshold_db:g} dB re {ref}{known}"
 

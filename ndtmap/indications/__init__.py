@@ -62,6 +62,12 @@ from ndtmap.indications.record import (
     IndicationRecord,
     largest_indication,
 )
+from ndtmap.indications.recording import (
+    DGS_REFERENCES,
+    RECORDING_KINDS,
+    RecordingCurve,
+    dgs_recording_curve,
+)
 from ndtmap.indications.rules import (
     QUANTITIES,
     DensityLimit,
@@ -146,6 +152,10 @@ __all__ = [
     "size_indications",
     "scanned_area_mm2",
     "map_detection_level",
+    "RecordingCurve",
+    "RECORDING_KINDS",
+    "DGS_REFERENCES",
+    "dgs_recording_curve",
     "DetectionOptions",
     "LossOptions",
     "SizingOptions",

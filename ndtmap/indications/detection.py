@@ -42,6 +42,7 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_int
 from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import jsonable
+from ndtmap.signal import DacCurve
 
 __all__ = [
     "Indication",
@@ -165,7 +166,7 @@ def reference_map(reference: Any, amplitude_map: xr.DataArray, *, name: str = "r
     return np.full(shape, level)
 
 
-def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh: Any) -> xr.DataArray:
+def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh: Any = None) -> xr.DataArray:
     """Evaluate a reference curve (e.g. a DAC) at the depth of every position.
 
     The curve is interpolated linearly in dB between its points (a DAC of an
@@ -177,10 +178,12 @@ def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh
     ----------
     depth_map : xarray.DataArray (scan, index)
         Depth of the gate event, mm.
-    curve_depth_mm : array_like
-        Depths of the curve points, mm, strictly increasing.
+    curve_depth_mm : array_like or DacCurve
+        Depths of the curve points, mm, strictly increasing; or a
+        :class:`ndtmap.signal.DacCurve`, whose own rule then applies outside
+        its depths (refused depths raise, as for points).
     curve_fsh : array_like
-        Reference amplitude at those depths, %FSH (> 0).
+        Reference amplitude at those depths, %FSH (> 0); not with a DacCurve.
 
     Returns
     -------
@@ -200,6 +203,10 @@ def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh
     [[80.0, 20.0]]
     """
     dm = mg.as_map("depth_map", depth_map)
+    if isinstance(curve_depth_mm, DacCurve):
+        if curve_fsh is not None:
+            raise ParameterError("give either a DacCurve or the points `curve_depth_mm` and `curve_fsh`, not both")
+        return _reference_from_dac(dm, depth_map, curve_depth_mm)
     try:
         z = np.asarray(curve_depth_mm, dtype=np.float64).reshape(-1)
         a = np.asarray(curve_fsh, dtype=np.float64).reshape(-1)
@@ -235,6 +242,25 @@ def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh
     )
 
 
+def _reference_from_dac(dm: xr.DataArray, depth_map: xr.DataArray, curve: DacCurve) -> xr.DataArray:
+    """:func:`reference_from_curve` for a DacCurve: its level at every known depth, by its own outside rule."""
+    d = dm.values
+    known = np.isfinite(d)
+    out = np.full(d.shape, np.nan)
+    out[known] = curve.level_fsh(d[known])
+    refused = known & ~np.isfinite(out)
+    if refused.any():
+        lo, hi = curve.range_mm
+        raise CalibrationError(
+            f"depths from {np.nanmin(d[refused]):g} to {np.nanmax(d[refused]):g} mm lie outside the reference "
+            f"curve ({lo:g} to {hi:g} mm), which refuses them; extend the curve or narrow the gate"
+        )
+    return xr.DataArray(
+        out, dims=mg.MAP_DIMS, coords={"scan": dm.coords["scan"], "index": dm.coords["index"]},
+        attrs={**dict(depth_map.attrs), "units": "%FSH", "long_name": f"{curve.label} level at the gate depth"},
+    )
+
+
 def _regions(
     above: np.ndarray, missing: np.ndarray, *, bridge_missing: bool
 ) -> list[np.ndarray]:
@@ -263,6 +289,7 @@ def _build(
     bridge_missing: bool,
     order: str,
     first_id: int,
+    rank: np.ndarray | None = None,
 ) -> list[Indication]:
     scan, index = mg.coords_mm(value_map)
     areas = mg.cell_areas(value_map)
@@ -275,7 +302,7 @@ def _build(
             continue
         if min_area_mm2 > 0 and (area is None or area < min_area_mm2):
             continue
-        v = np.where(region, values, -np.inf)
+        v = np.where(region, values, -np.inf) if rank is None else np.where(region & np.isfinite(rank), rank, -np.inf)
         flat = int(np.argmax(v))  # first maximum in C order: lowest scan, then lowest index
         pk = np.unravel_index(flat, values.shape)
         pk = (int(pk[0]), int(pk[1]))
@@ -319,7 +346,7 @@ def _build(
                 touches_edge=mg.touches_edge(region),
                 missing_adjacent=mg.adjacent_missing(region, missing),
                 region=region,
-                _peak=peak_value,
+                _peak=peak_value if rank is None else float(rank[pk]),
             )
         )
     if order == "peak":
@@ -366,7 +393,9 @@ def detect_indications(
         Detection level in %FSH: positions with amplitude >= it are detected.
     threshold_db : float, optional
         Detection level in dB re `reference` (e.g. -6 for "half the DAC").
-        Give exactly one of `threshold_fsh` and `threshold_db`.
+        Give exactly one of `threshold_fsh` and `threshold_db`. With it the
+        peak of an indication (and the numbering) is the position of the
+        highest amplitude re the reference, not the highest %FSH.
     reference : float or xarray.DataArray, optional
         Reference level in %FSH: one number (a nominal back-wall level or a
         reference reflector echo) or a map of per-position levels (e.g. a DAC
@@ -416,6 +445,7 @@ def detect_indications(
             f"threshold_fsh={threshold_fsh!r}, threshold_db={threshold_db!r}"
         )
     ref = reference_map(reference, amp) if reference is not None else None
+    rank = None
     values = np.where(np.isfinite(amp.values), amp.values, np.nan)  # +-inf amplitude is not a reading
     with np.errstate(invalid="ignore"):
         if threshold_fsh is not None:
@@ -430,6 +460,7 @@ def detect_indications(
                 raise ParameterError("`threshold_db` needs a `reference` level (a number in %FSH or a map)")
             above = np.isfinite(values) & np.isfinite(ref) & (values >= ref * 10.0 ** (db / 20.0))
             text = f">= {db:+g} dB re reference"
+            rank = values / ref  # the peak of a level in dB is the highest amplitude re the reference
     depth = None
     if depth_map is not None:
         dm = mg.as_map("depth_map", depth_map)
@@ -448,6 +479,7 @@ def detect_indications(
         bridge_missing=bool(bridge_missing),
         order=order,
         first_id=first,
+        rank=rank,
     )
 
 

@@ -204,7 +204,7 @@ def equivalent_fbh_diameter(
     if b <= 0:
         raise CalibrationError(f"`backwall_fsh` must be greater than 0 %FSH, got {backwall_fsh!r}")
     fs = positive_float("full_scale_fsh", full_scale_fsh)
-    if b >= min(fs, 100.0) * (1.0 - 1e-3):
+    if b >= fs * (1.0 - 1e-3):  # clipped by the digitiser (a 150 %FSH echo on a 200 %FSH one is not)
         raise CalibrationError(
             f"`backwall_fsh` is {b:g} %FSH, at the full scale: the back-wall reference is saturated; "
             "take it at lower gain and give the difference as `backwall_gain_reduction_db`"

@@ -7,9 +7,13 @@ reader how far to trust it and what to do instead.
 Rules used here (each also stated in the function that applies it):
 
 ``saturated``
-    Peak >= 100 %FSH or at the digitiser full scale (``digitiser_full_scale_fsh``,
-    default 100) within 0.1 %: the true peak is unknown, so every drop is
-    measured from a wrong reference and the DGS size is a lower bound.
+    The peak's echo was clipped by the digitiser: the recorded peak reached
+    the digitiser full scale (``digitiser_full_scale_fsh``, default 100 %FSH)
+    within 0.1 % (a 150 %FSH echo on a 200 %FSH digitiser is not clipped);
+    after a software gain (:func:`ndtmap.signal.apply_tcg`) the map's
+    ``clipped`` state of the recorded samples decides, not the amplified
+    value. The true peak is unknown, so every drop is measured from a wrong
+    reference and the DGS size is a lower bound.
 ``smaller_than_beam``
     The 6 dB drop length along the scan or the index axis lies within the
     range of 6 dB lengths that a point reflector gives at the indication's
@@ -80,7 +84,7 @@ __all__ = [
 
 #: Every flag and its one-line meaning.
 FLAG_MEANINGS: dict[str, str] = {
-    "saturated": "peak at 100 %FSH or the digitiser full scale: the true peak is unknown, drop sizing is invalid "
+    "saturated": "peak clipped at the digitiser full scale: the true peak is unknown, drop sizing is invalid "
     "and the DGS size a lower bound; rescan at lower gain",
     "smaller_than_beam": "6 dB drop length within the range a point reflector gives at that depth (piston "
     "model over the probe's band): the drop measured the beam, report the DGS equivalent size instead",
@@ -103,7 +107,7 @@ FLAGS: tuple[str, ...] = tuple(FLAG_MEANINGS)
 
 
 def is_saturated(peak_fsh: float | None, *, full_scale_fsh: float = 100.0, rtol: float = 1e-3) -> bool:
-    """True when a peak is at 100 %FSH or at the digitiser full scale.
+    """True when a recorded peak is at the digitiser full scale (clipped).
 
     Parameters
     ----------
@@ -118,11 +122,13 @@ def is_saturated(peak_fsh: float | None, *, full_scale_fsh: float = 100.0, rtol:
     --------
     >>> is_saturated(100.0), is_saturated(99.5), is_saturated(127.0, full_scale_fsh=127.0)
     (True, False, True)
+    >>> is_saturated(150.0, full_scale_fsh=200.0)
+    False
     """
     if peak_fsh is None or not math.isfinite(peak_fsh):
         return False
     fs = positive_float("full_scale_fsh", full_scale_fsh)
-    return bool(peak_fsh >= 100.0 or peak_fsh >= fs * (1.0 - rtol))
+    return bool(peak_fsh >= fs * (1.0 - rtol))
 
 
 def is_smaller_than_beam(length_mm: float | None, uncertainty_mm: float | None, beam_width_mm: float | None) -> bool:
@@ -383,6 +389,7 @@ def amplitude_flags(
     full_scale_fsh: float,
     min_snr_db: float,
     repeat_notes: Sequence[str] = (),
+    clipped: bool | None = None,
 ) -> tuple[tuple[str, ...], tuple[str, ...]]:
     """The amplitude flags of one indication (``saturated``, ``low_snr``, ``repeat_echo``) and their notes.
 
@@ -398,6 +405,10 @@ def amplitude_flags(
         ``low_snr`` below this peak-to-noise ratio, dB.
     repeat_notes : sequence of str
         This indication's notes from :func:`repeat_echo_notes` (``repeat_echo`` when any).
+    clipped : bool, optional
+        Whether the peak's echo was clipped in the recorded samples (from the
+        map's ``clipped`` coordinate after a software gain); None: judged
+        from the peak against `full_scale_fsh`.
 
     Returns
     -------
@@ -405,11 +416,11 @@ def amplitude_flags(
     """
     flags: list[str] = []
     notes: list[str] = []
-    if is_saturated(ind.peak_fsh, full_scale_fsh=full_scale_fsh):
+    if clipped if clipped is not None else is_saturated(ind.peak_fsh, full_scale_fsh=full_scale_fsh):
         flags.append("saturated")
         notes.append(
-            f"peak {ind.peak_fsh:.1f} %FSH is at full scale: drop sizes are invalid and the DGS size is a lower "
-            "bound; rescan at lower gain"
+            f"peak {ind.peak_fsh:.1f} %FSH: its echo was clipped at the digitiser full scale ({full_scale_fsh:g} "
+            "%FSH): drop sizes are invalid and the DGS size is a lower bound; rescan at lower gain"
         )
     if is_low_snr(ind.peak_fsh, noise_fsh, min_snr_db=min_snr_db):
         flags.append("low_snr")
@@ -439,7 +450,7 @@ def explain(flags: Iterable[str]) -> list[str]:
 
     Examples
     --------
-    >>> explain(["saturated"])[0].startswith("saturated: peak at 100 %FSH")
+    >>> explain(["saturated"])[0].startswith("saturated: peak clipped at the digitiser full scale")
     True
     """
     return [f"{f}: {FLAG_MEANINGS[f]}" if f in FLAG_MEANINGS else str(f) for f in flags]

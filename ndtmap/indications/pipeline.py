@@ -71,13 +71,15 @@ def scanned_area_mm2(amplitude_map: xr.DataArray) -> float:
     return float(areas[ok].sum())
 
 
-def map_detection_level(amplitude_map: xr.DataArray) -> dict[str, float]:
+def map_detection_level(amplitude_map: xr.DataArray) -> dict[str, Any]:
     """The detection level of the gate that made `amplitude_map`, from the map's attributes.
 
     The gate's JSON definition (attr ``gate``) gives ``threshold_fsh``, or
     ``threshold_db`` with a numeric ``reference``, or for a level in dB re
-    the back wall the back-wall level it was evaluated with; without it the
-    attribute ``gate_threshold_fsh``.
+    the back wall the back-wall level it was evaluated with, or for a level
+    in dB re the DAC the curve's level at each position (the map's
+    coordinate ``dac_level_fsh``); without it the attribute
+    ``gate_threshold_fsh``.
 
     Returns
     -------
@@ -108,6 +110,15 @@ def map_detection_level(amplitude_map: xr.DataArray) -> dict[str, float]:
             ) from None
         if gate.threshold_db is None:
             return {"threshold_fsh": float(gate.threshold_fsh)}
+        if gate.reference == "dac":
+            if "dac_level_fsh" not in amplitude_map.coords:
+                raise ParameterError(
+                    "the map's gate has its level in dB re the DAC but the map carries no `dac_level_fsh`; make it "
+                    "with amplitude_map(..., result=evaluate_gate(..., dac=curve)) or give `threshold_db` and "
+                    "`reference` (the DAC level at each position)"
+                )
+            level_map = amplitude_map.coords["dac_level_fsh"].reset_coords(drop=True)
+            return {"threshold_db": float(gate.threshold_db), "reference": level_map}
         if isinstance(gate.reference, float):
             return {"threshold_db": float(gate.threshold_db), "reference": gate.reference}
         if gate.threshold_fsh is not None:  # re the back wall, evaluated with its level
@@ -279,7 +290,7 @@ def _amplitude_records(
         ers = dgs_equivalent_size(ind, sizes, backwall=bw, inputs=dgs_inputs)
         validity, validity_notes = amplitude_flags(
             ind, noise_fsh=noise, full_scale_fsh=dgs_inputs.full_scale_fsh, min_snr_db=flag_options.min_snr_db,
-            repeat_notes=repeats.get(ind.id, ()),
+            repeat_notes=repeats.get(ind.id, ()), clipped=_clipped_at(amp, ind),
         )
         notes = _distinct(sizes.notes + ers.notes + validity_notes) + ((_NOISE_UNKNOWN,) if noise is None else ())
         echo = found.get(ind.id, EchoFindings())
@@ -347,6 +358,13 @@ def _detected_fields(ind: Indication) -> dict[str, Any]:
         detected_area_mm2=finite_or_none(ind.area_mm2), detection_level=ind.detection_level,
         peak_index=ind.peak_position, detected_region=ind.region,
     )
+
+
+def _clipped_at(amp: xr.DataArray, ind: Indication) -> bool | None:
+    """The clipped state at the peak from the map's ``clipped`` coordinate (software gain), else None."""
+    if "clipped" not in amp.coords:
+        return None
+    return bool(amp.coords["clipped"].values[ind.peak_position])
 
 
 def _distinct(notes: Sequence[str]) -> tuple[str, ...]:

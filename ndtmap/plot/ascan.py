@@ -70,13 +70,15 @@ class GateMark:
         return self.gate.name
 
     @property
-    def threshold_fsh(self) -> float:
-        return float(self.gate.threshold_fsh)
+    def threshold_fsh(self) -> float | None:
+        """The level in %FSH, or None for a level re a curve (DAC), which varies with depth."""
+        return None if self.gate.threshold_fsh is None else float(self.gate.threshold_fsh)
 
     def label(self) -> str:
         """The gate's legend entry: name, window as defined, threshold and the gate it follows."""
         g = self.gate
-        text = f"{escape(g.name)}: {g.start:g}-{g.end:g} {g.unit}, {g.threshold_fsh:g} %FSH"
+        level = f"{g.threshold_fsh:g} %FSH" if g.threshold_fsh is not None else escape(g.level_text())
+        text = f"{escape(g.name)}: {g.start:g}-{g.end:g} {g.unit}, {level}"
         if g.mode != "peak":
             text += f", {escape(g.mode)}"
         if g.follows is not None:
@@ -133,7 +135,13 @@ def _gate_marks(mark: GateMark, color: str, top: float, bipolar: bool, axis: str
     tick = 0.03 * top
     shapes = [dict(type="rect", xref="x", yref="paper", x0=x0, x1=x1, y0=0, y1=1, fillcolor=color, opacity=0.08,
                    line_width=0, layer="below")]
-    traces = [go.Scatter(x=[x0, x0, None, x0, x1, None, x1, x1],
+    if thr is None:  # a level re a curve (DAC): no single bar; the window and the event are drawn
+        thr, bipolar = 0.9 * top, False
+        traces = [go.Scatter(x=[None], y=[None], mode="lines", line=dict(color=color, width=3), name=label,
+                             legendgroup=mark.name, hoverinfo="skip")]
+    else:
+        traces = []
+    traces = traces or [go.Scatter(x=[x0, x0, None, x0, x1, None, x1, x1],
                          y=[thr - tick, thr + tick, None, thr, thr, None, thr - tick, thr + tick],
                          mode="lines", line=dict(color=color, width=3), name=label, legendgroup=mark.name,
                          hovertemplate=f"gate {escape(mark.name)}: threshold {thr:g} %FSH<extra></extra>")]

@@ -16,6 +16,7 @@ from typing import Any
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_float
 from ndtmap.errors import NdtmapError, ProcedureError
 from ndtmap.gates import Gate, gate_chain
+from ndtmap.indications import RecordingCurve
 
 __all__ = ["PROCEDURE_FORMAT", "FIGURE_KINDS", "DETECT_KINDS", "EDGE_RULES", "Procedure"]
 
@@ -64,6 +65,9 @@ class Procedure:
         Free text.
     first_look : bool
         True for a procedure derived from the grid by :func:`first_look_procedure`.
+    recording : RecordingCurve, optional
+        The depth-dependent recording curve (DAC points, or a DGS level for
+        an equivalent FBH) that gate levels in dB re ``'dac'`` refer to.
     base_dir : str, optional
         Folder that relative paths in the procedure refer to.
     """
@@ -85,6 +89,7 @@ class Procedure:
     figures: tuple[str, ...] = FIGURE_KINDS
     description: str = ""
     first_look: bool = False
+    recording: RecordingCurve | None = None
     base_dir: str | None = field(default=None, compare=False)
 
     def __post_init__(self) -> None:
@@ -113,6 +118,7 @@ class Procedure:
             raise ProcedureError(
                 f"gate(s) {level_gates} have their level in dB re the back wall; the procedure needs a [backwall] gate"
             )
+        self._check_recording(gates)
         if self.backwall_gate in level_gates:
             raise ProcedureError(f"the back-wall gate {self.backwall_gate!r} cannot have its level re the back wall")
         for name in ("backwall_nominal_fsh",):
@@ -149,6 +155,20 @@ class Procedure:
         if bad:
             raise ProcedureError(f"unknown figure kind(s) {bad} in `figures.include`; known: {list(FIGURE_KINDS)}")
         object.__setattr__(self, "figures", figures)
+
+    def _check_recording(self, gates: tuple[Gate, ...]) -> None:
+        """Gates with a level re the DAC need the [recording] curve; a DGS level from the back wall needs that gate."""
+        rec = self.recording
+        if rec is not None and not isinstance(rec, RecordingCurve):
+            raise ProcedureError(f"`recording` must be a RecordingCurve or None, got {type(rec).__name__}")
+        curve_gates = [g.name for g in gates if g.level_re_curve]
+        if curve_gates and rec is None:
+            raise ProcedureError(
+                f"gate(s) {curve_gates} have their level in dB re the DAC; the procedure needs a [recording] curve "
+                "(DAC points or a DGS level)"
+            )
+        if rec is not None and rec.kind == "dgs" and rec.reference == "backwall" and self.backwall_gate is None:
+            raise ProcedureError("a DGS recording level set from the back wall needs a [backwall] gate")
 
     def gate(self, name: str) -> Gate:
         """The gate called `name`."""
@@ -207,6 +227,8 @@ class Procedure:
                 bw["loss_threshold_db"] = self.backwall_loss_threshold_db
             doc["backwall"] = bw
         doc["sizing"] = {"edge": self.edge, "transfer_correction_db": self.transfer_correction_db}
+        if self.recording is not None:
+            doc["recording"] = self.recording.to_dict()
         if self.rules is not None:
             doc["screening"] = {"rules": self.rules}
         doc["figures"] = {"include": list(self.figures)}

@@ -39,6 +39,14 @@ The file format (``format = "ndtmap-procedure 2"``; files of format 1 are read t
     edge = "first"           # or "outermost"
     transfer_correction_db = 0.0
 
+    [recording]              # optional: the curve a gate level `reference = "dac"` refers to
+    kind = "dac"             # DAC points: [depth_mm, amplitude_fsh], linear in dB between them
+    points = [[10.0, 80.0], [50.0, 20.0]]
+    outside = "conservative" # beyond the points: "conservative", "extrapolate" or "refuse"
+    # file = "dac.csv"       # instead of points: a CSV file with the header depth_mm,amplitude_fsh
+    # or a DGS level:  kind = "dgs", fbh_mm = 2.0, reference = "backwall" (the [backwall] gate's
+    # nominal echo), or reference = "fbh" with reference_fbh_mm, reference_depth_mm, reference_fsh
+
     [screening]              # optional
     rules = "rules.toml"     # path relative to this file
 
@@ -64,8 +72,10 @@ import tomli_w
 
 from ndtmap.errors import NdtmapError, ProcedureError
 from ndtmap.gates import Gate
+from ndtmap.indications import RecordingCurve
 from ndtmap.io import atomic_write_text
 from ndtmap.procedure.definition import FIGURE_KINDS, PROCEDURE_FORMAT, Procedure
+from ndtmap.signal import DacCurve, dac_curve
 
 __all__ = ["READABLE_FORMATS", "parse_procedure", "load_procedure", "procedure_to_toml", "save_procedure"]
 
@@ -81,6 +91,8 @@ _SECTIONS = {
     "sizing": {"edge", "transfer_correction_db"},
     "screening": {"rules"},
     "figures": {"include"},
+    "recording": {"kind", "points", "file", "outside", "fbh_mm", "reference", "reference_fbh_mm",
+                  "reference_depth_mm", "reference_fsh"},
 }
 
 
@@ -111,6 +123,31 @@ def _legacy_detection_level(doc: dict[str, Any], fmt: str | None, source: str) -
     if "threshold_db" not in found:
         raise ProcedureError(f"{source}: `detection.reference` is used only with `detection.threshold_db`")
     return {"threshold_fsh": None, "threshold_db": found["threshold_db"], "reference": found.get("reference")}
+
+
+def _recording(table: Any, source: str, base_dir: str | None) -> RecordingCurve | None:
+    """The [recording] table as a RecordingCurve (DAC points or file, or a DGS level), or None."""
+    if table is None:
+        return None
+    rec = dict(table)
+    kind = rec.pop("kind", None)
+    if kind == "dac":
+        outside = rec.pop("outside", "conservative")
+        points, file = rec.pop("points", None), rec.pop("file", None)
+        if (points is None) == (file is None):
+            raise ProcedureError(f"{source}: [recording] of kind 'dac' needs exactly one of `points` and `file`")
+        if file is not None:
+            path = Path(file) if Path(file).is_absolute() or not base_dir else Path(base_dir) / file
+            curve = DacCurve.from_csv(path, outside=outside)
+        else:
+            if not isinstance(points, list) or not all(isinstance(p, list) and len(p) == 2 for p in points):
+                raise ProcedureError(f"{source}: `recording.points` must be a list of [depth_mm, amplitude_fsh] pairs")
+            curve = dac_curve([p[0] for p in points], [p[1] for p in points], outside=outside,
+                              source=f"{source} [recording]")
+            if list(curve.depths_mm) != [float(p[0]) for p in points]:
+                raise ProcedureError(f"{source}: `recording.points` must have increasing depths, got {points}")
+        return RecordingCurve("dac", dac=curve, **rec)
+    return RecordingCurve(kind, **rec)
 
 
 def _gate_from_entry(entry: Any, level: dict[str, Any] | None) -> Gate:
@@ -215,6 +252,7 @@ def parse_procedure(text: str, *, source: str = "<procedure>", base_dir: str | N
             zero_offset_us=cal.get("zero_offset_us"),
             rules=doc.get("screening", {}).get("rules"),
             figures=tuple(figures),
+            recording=_recording(doc.get("recording"), source, base_dir),
             base_dir=base_dir,
         )
     except ProcedureError as exc:

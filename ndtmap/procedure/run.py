@@ -11,16 +11,17 @@ included) and screens them with
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 import xarray as xr
 
 from ndtmap._shared.caution import CAUTION
-from ndtmap.errors import NdtmapError
+from ndtmap.errors import NdtmapError, ParameterError
 from ndtmap.gates import Gate, evaluate_gates, gate_chain
 from ndtmap.grid.calibration import calibrate
+from ndtmap.grid.geometry import part_constants
 from ndtmap.grid.schema import grid_attr
 from ndtmap.indications import (
     DetectionOptions,
@@ -28,14 +29,18 @@ from ndtmap.indications import (
     EchoCheck,
     IndicationRecord,
     LossOptions,
+    RecordingCurve,
     SizingOptions,
     load_rules,
+    map_detection_level,
     scanned_area_mm2,
     screen_records,
     size_indications,
 )
+from ndtmap.physics.beam import near_field_length_mm
 from ndtmap.procedure.definition import Procedure
 from ndtmap.scans import amplitude_map, backwall_loss_map, depth_map, thickness_map
+from ndtmap.signal import DacCurve
 
 __all__ = ["Analysis", "run_procedure", "procedure_from_options"]
 
@@ -59,7 +64,8 @@ class Analysis:
     maps : dict of str to xarray.DataArray
         ``amplitude``, ``depth`` (detection gate) and, with a back-wall gate,
         ``backwall_amplitude``, ``backwall_depth``, ``backwall_loss`` and
-        ``thickness``.
+        ``thickness``; with a recording curve ``amplitude_re_dac`` (dB, the
+        maximum of A/curve over the detection gate).
     indications : list of IndicationRecord
         Sized, flagged (and, with rules, screened) indications (see
         :func:`ndtmap.size_indications`).
@@ -69,6 +75,9 @@ class Analysis:
     notes : list of str
     source : str or None
         Where the grid came from.
+    curve : DacCurve or None
+        The recording curve as used (the DAC, or the DGS curve built from the
+        measured back-wall echo), when the procedure has one.
     """
 
     grid: xr.Dataset
@@ -80,6 +89,7 @@ class Analysis:
     cautions: list[str]
     notes: list[str]
     source: str | None = None
+    curve: DacCurve | None = None
 
     def indications_document(self) -> dict[str, Any]:
         """The JSON document of ``ndtmap indications --format json`` (records by ``to_dict()``)."""
@@ -90,6 +100,7 @@ class Analysis:
             "gate": gate.to_dict(),
             "threshold_fsh": gate.threshold_fsh if gate.threshold_db is None else None,
             "threshold_db": gate.threshold_db,
+            "recording_curve": None if self.curve is None else self.curve.to_dict(),
             "procedure": self.procedure.name,
             "indications": [rec.to_dict() for rec in self.indications],
             "screening": self.screening,
@@ -98,15 +109,47 @@ class Analysis:
         }
 
 
-def _evaluate_chains(grid: xr.Dataset, gates: Mapping[str, Gate], names: list[str], detect: str
-                     ) -> dict[str, xr.Dataset]:
-    """Evaluate the gates `names` and the gates they follow, each once, in memory."""
+def _evaluate_chains(grid: xr.Dataset, gates: Mapping[str, Gate], names: list[str], detect: str,
+                     curve: DacCurve | None = None) -> dict[str, xr.Dataset]:
+    """Evaluate the gates `names` and the gates they follow, each once, in memory (with the recording curve)."""
     chain: list[Gate] = []
     for name in names:
         for g in gate_chain(gates, name):
             if g not in chain:
                 chain.append(g)
-    return {name: r.compute() for name, r in evaluate_gates(grid, chain, detect=detect).items()}
+    return {name: r.compute() for name, r in evaluate_gates(grid, chain, detect=detect, dac=curve).items()}
+
+
+def _recording_curve(grid: xr.Dataset, proc: Procedure, maps: Mapping[str, xr.DataArray]) -> DacCurve | None:
+    """The procedure's recording curve: its DAC, or the DGS curve over the detection gate's depths."""
+    rec = proc.recording
+    if rec is None or rec.kind == "dac":
+        return None if rec is None else rec.dac
+    pc = part_constants(grid)
+    det = proc.gate(proc.detection_gate)
+    d0, d1 = pc.record_depth_mm()
+    if det.unit == "mm" and det.follows is None:
+        d0, d1 = det.start, det.end
+    floor = max(0.5, 0.05 * near_field_length_mm(float(grid_attr(grid, "probe_diameter_mm")),
+                                                 float(grid_attr(grid, "probe_frequency_mhz")), pc.velocity_m_s))
+    backwall_fsh = backwall_depth = None
+    if "backwall_loss" in maps:
+        backwall_fsh = float(maps["backwall_loss"].attrs["nominal_fsh"])
+        backwall_depth = _nominal_backwall_depth_mm(grid, maps.get("backwall_depth"))
+    return rec.curve(depths_mm=[max(floor, d0), max(floor * 1.01, d1)], attrs=grid.attrs, backwall_fsh=backwall_fsh,
+                     backwall_depth_mm=backwall_depth, transfer_correction_db=proc.transfer_correction_db)
+
+
+def _curve_notes(records: list[IndicationRecord], curve: DacCurve | None) -> list[IndicationRecord]:
+    """Each record whose depths leave the curve's recorded range says so, and by which rule its level was taken."""
+    if curve is None:
+        return records
+    out = []
+    for rec in records:
+        lo, hi = rec.depth_min_mm, rec.depth_max_mm
+        note = None if lo is None or hi is None else curve.outside_note(lo, hi)
+        out.append(rec if note is None else replace(rec, notes=(*rec.notes, note)))
+    return out
 
 
 def _backwall_maps(grid: xr.Dataset, proc: Procedure, result: xr.Dataset, notes: list[str]) -> dict[str, xr.DataArray]:
@@ -139,6 +182,8 @@ def _size(grid: xr.Dataset, proc: Procedure, det: Gate, maps: Mapping[str, xr.Da
     """size_indications on the detection maps with the procedure's options."""
     if det.threshold_db is None:
         level: dict[str, Any] = {"threshold_fsh": det.threshold_fsh}
+    elif det.level_re_curve:  # the curve's level where A/DAC peaks, position by position
+        level = map_detection_level(maps["amplitude"])
     else:  # the level in dB re its reference, as the gate states it (the records name it so)
         ref = float(maps["backwall_loss"].attrs["nominal_fsh"]) if det.reference == "backwall" else det.reference
         level = {"threshold_db": det.threshold_db, "reference": ref}
@@ -209,20 +254,28 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
     # one pass over the A-scans per gate: every map of a gate is made from the same evaluation; a level in dB
     # re the back wall needs the back-wall gate measured first
     wanted = [proc.detection_gate] if proc.backwall_gate is None else [proc.backwall_gate, proc.detection_gate]
-    first = wanted if not any(g.needs_reference for g in gates.values()) else wanted[:1]
-    results = _evaluate_chains(grid, gates, first, proc.detect)
+    separate = any(g.needs_reference for g in gates.values()) or proc.recording is not None
+    if separate:  # the back wall first: it sets levels re the back wall and a DGS curve
+        results = {} if proc.backwall_gate is None else _evaluate_chains(grid, gates, wanted[:1], proc.detect)
+    else:
+        results = _evaluate_chains(grid, gates, wanted, proc.detect)
     if proc.backwall_gate is not None:
         maps.update(_backwall_maps(grid, proc, results[proc.backwall_gate], notes))
         # the same nominal back-wall level as the back-wall-loss map (the procedure's, else the median)
         nominal = float(maps["backwall_loss"].attrs["nominal_fsh"])
         gates = {name: g.with_reference_fsh(nominal) for name, g in gates.items()}
-    if proc.detection_gate not in results:
-        results.update(_evaluate_chains(grid, gates, [proc.detection_gate], proc.detect))
+    curve = _recording_curve(grid, proc, maps)
+    if proc.detection_gate not in results or curve is not None:
+        results.update(_evaluate_chains(grid, gates, [proc.detection_gate], proc.detect, curve))
     det = gates[proc.detection_gate]
     maps["amplitude"] = amplitude_map(grid, det, detect=proc.detect, result=results[det.name])
+    if curve is not None:
+        maps["amplitude_re_dac"] = amplitude_map(grid, det, detect=proc.detect, dac=curve, result=results[det.name])
+        notes.append(f"recording level: {proc.recording.describe()}; amplitudes re the curve are the maximum of "
+                     "A(t)/curve(t) over the gate")
     maps["depth"] = depth_map(grid, det, detect=proc.detect, result=results[det.name])
     rules = load_rules(proc.rules_path()) if proc.rules is not None else None
-    records = _size(grid, proc, det, maps)
+    records = _curve_notes(_size(grid, proc, det, maps), curve)
     depth = _nominal_backwall_depth_mm(grid, maps.get("backwall_depth"))
     if depth is not None and det.unit == "mm" and det.follows is None and det.start < depth < det.end:
         notes.append(
@@ -234,32 +287,61 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
         records, result = screen_records(records, rules, scanned_area_mm2=scanned_area_mm2(maps["amplitude"]))
         screening = result.as_dict()
     return Analysis(grid=grid, procedure=proc, gates=gates, maps=maps, indications=records, screening=screening,
-                    cautions=cautions, notes=notes, source=source)
+                    cautions=cautions, notes=notes, source=source, curve=curve)
 
 
 def procedure_from_options(
     *,
     gate_mm: Iterable[float],
-    threshold_fsh: float,
+    threshold_fsh: float | None = None,
     mode: str = "peak",
     backwall_gate_mm: Iterable[float] | None = None,
     rules: str | None = None,
     min_area_mm2: float = 0.0,
     detect: str = "rectified",
+    threshold_db: float | None = None,
+    dac: DacCurve | None = None,
+    dgs_fbh_mm: float | None = None,
 ) -> Procedure:
     """The procedure behind ``ndtmap indications``'s options (a flaw gate in depth mm, an optional back-wall gate).
+
+    The detection level is `threshold_fsh` (%FSH) or `threshold_db`, in dB
+    re the recording curve: the DAC `dac`, or the DGS curve of an
+    equivalent FBH of `dgs_fbh_mm` set from the back-wall echo (which needs
+    `backwall_gate_mm`).
 
     Examples
     --------
     >>> p = procedure_from_options(gate_mm=(2.0, 20.0), threshold_fsh=25.0, backwall_gate_mm=(23.0, 27.0))
     >>> [g.name for g in p.gates], p.detection_level, p.backwall_gate
     (['flaw', 'backwall'], '25 %FSH', 'backwall')
+    >>> from ndtmap.signal import dac_curve
+    >>> procedure_from_options(gate_mm=(5, 45), threshold_db=0.0, dac=dac_curve([10, 50], [80, 20])).detection_level
+    '0 dB re the DAC'
     """
+    if (threshold_fsh is None) == (threshold_db is None):
+        raise ParameterError("give exactly one of `threshold_fsh` (%FSH) and `threshold_db` (dB re the DAC or DGS "
+                             f"curve), got threshold_fsh={threshold_fsh!r}, threshold_db={threshold_db!r}")
+    if dac is not None and dgs_fbh_mm is not None:
+        raise ParameterError("give either a DAC (`dac`) or a DGS level (`dgs_fbh_mm`), not both")
+    recording = None
+    if dac is not None:
+        recording = RecordingCurve("dac", dac=dac)
+    elif dgs_fbh_mm is not None:
+        recording = RecordingCurve("dgs", fbh_mm=dgs_fbh_mm)
+    if threshold_db is not None and recording is None:
+        raise ParameterError("`threshold_db` is a level in dB re the recording curve: give a DAC (`dac`, the "
+                             "command line's --dac FILE) or a DGS level (`dgs_fbh_mm`, --dgs-fbh-mm)")
     start, end = gate_mm
-    gates = [Gate("flaw", float(start), float(end), threshold_fsh=float(threshold_fsh), mode=mode)]
+    if threshold_db is not None:
+        flaw = Gate("flaw", float(start), float(end), threshold_db=float(threshold_db), reference="dac", mode=mode)
+    else:
+        flaw = Gate("flaw", float(start), float(end), threshold_fsh=float(threshold_fsh), mode=mode)
+    gates = [flaw]
     if backwall_gate_mm is not None:
         b0, b1 = backwall_gate_mm
-        gates.append(Gate("backwall", float(b0), float(b1), threshold_fsh=float(threshold_fsh)))
+        level = {} if threshold_fsh is None else {"threshold_fsh": float(threshold_fsh)}
+        gates.append(Gate("backwall", float(b0), float(b1), **level))
     return Procedure(
         name="command-line options",
         gates=tuple(gates),
@@ -268,4 +350,5 @@ def procedure_from_options(
         min_area_mm2=min_area_mm2,
         detect=detect,
         rules=rules,
+        recording=recording,
     )

@@ -204,7 +204,8 @@ def ascan_plot(analysis: Any, part: str) -> Built:
     fs, fi, why = _focus(analysis)
     a = ascan_at(grid, fs, fi, detect=proc.detect)
     sub = grid.sel(scan=[float(a["scan"])], index=[float(a["index"])])
-    results = {k: v.compute() for k, v in evaluate_gates(sub, list(proc.gates), detect=proc.detect).items()}
+    results = {k: v.compute() for k, v in evaluate_gates(sub, list(proc.gates), detect=proc.detect,
+                                                          dac=getattr(analysis, "curve", None)).items()}
     title = f"{part}: A-scan at scan {float(a['scan']):.1f} mm, index {float(a['index']):.1f} mm"
     fig = ascan_figure(a, list(proc.gates), gate_results=results, title=title)
     cap = (f"A-scan at scan {float(a['scan']):.1f} mm, index {float(a['index']):.1f} mm ({why}), "

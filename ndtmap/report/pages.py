@@ -111,6 +111,9 @@ def threshold_text(analysis: Any) -> str:
     gate = analysis.gates[analysis.procedure.detection_gate]  # as evaluated: a level re the back wall in %FSH too
     if gate.threshold_db is None:
         return f"{gate.threshold_fsh:g} %FSH"
+    if gate.reference == "dac":
+        curve = getattr(analysis, "curve", None)
+        return f"{gate.threshold_db:g} dB re the {curve.label if curve is not None else 'DAC'} (a level per depth)"
     if gate.reference == "backwall":
         ref = float(analysis.maps["backwall_loss"].attrs["nominal_fsh"])
         what = f"the nominal back-wall echo, {ref:.2f} %FSH"
@@ -122,6 +125,8 @@ def threshold_text(analysis: Any) -> str:
 
 def _gate_level(gate: Any) -> str:
     """A gate's level in %FSH as evaluated, and how it was stated when in dB."""
+    if gate.reference == "dac":
+        return f"{gate.threshold_db:g} dB re the DAC"
     level = fmt_number(gate.threshold_fsh, ".3g")
     if gate.threshold_db is None:
         return level

@@ -59,7 +59,7 @@ MAP_KINDS = ("amplitude", "depth", "thickness", "backwall-loss")
 THICKNESS_METHODS = ("first-echo", "echo-to-echo", "interface-to-backwall")
 _GATE_RESULT_KEYS = ("gate", "gate_name", "gate_start", "gate_end", "gate_unit", "gate_threshold_fsh", "gate_mode",
                      "gate_follows", "detect", "depth_reference", "gate_window_us", "gate_window_relative_us",
-                     "positions_outside_record")
+                     "positions_outside_record", "dac")
 
 
 def _finish(values: xr.DataArray, grid: xr.Dataset, *, name: str, units: str, long_name: str, step: str,
@@ -122,8 +122,8 @@ def amplitude_map(
     reference_fsh : float, optional
         Give the map in dB re this level instead of %FSH.
     dac : DacCurve, optional
-        Give the map in dB re the DAC at the event depth (NaN where the gate
-        did not trigger, since the depth is then unknown).
+        Give the map in dB re the DAC: the maximum over the window of
+        ``A(t) / DAC(t)`` (not the highest echo converted at its own depth).
     result : xarray.Dataset, optional
         This gate's :func:`ndtmap.gates.evaluate.evaluate_gate` (or ``evaluate_gates``)
         result, to share one pass over the A-scans between several maps.
@@ -133,6 +133,14 @@ def amplitude_map(
     xarray.DataArray (scan, index)
         ``amplitude_fsh`` in %FSH (the highest sample in the window, also
         below the threshold; NaN where missing), or ``amplitude_db`` in dB.
+        With `dac`: ``amplitude_db_re_dac``, the maximum of ``A(t)/DAC(t)``
+        over the window in dB (a gate whose level is re the DAC needs
+        `dac`; its %FSH map is the amplitude where that ratio peaks). On a
+        grid through :func:`ndtmap.signal.apply_tcg` the %FSH map carries
+        the coordinate ``clipped`` (the event's echo reached the digitiser
+        full scale in the recorded samples); the %FSH map of a gate whose
+        level is re the DAC carries ``dac_level_fsh``, the curve's level
+        where ``A/DAC`` peaks.
 
     Examples
     --------
@@ -159,7 +167,12 @@ def amplitude_map(
         return _finish(res["amplitude_db_re_dac"], grid, name="amplitude_db_re_dac", units="dB",
                        long_name=f"gate {gate.name} amplitude re DAC", step="amplitude_map", params=params,
                        source=res, gate_result=res, dac=json.dumps(dac.to_dict()))
-    return _finish(res["amplitude_fsh"], grid, name="amplitude_fsh", units="%FSH",
+    values = res["amplitude_fsh"]
+    if "clipped" in grid.data_vars and "clipped" in res.data_vars:  # software gain: clipping is not amplitude >= FS
+        values = values.assign_coords(clipped=res["clipped"].astype(bool))
+    if "dac_level_fsh" in res.data_vars:  # a level re the DAC: the curve's level where A/DAC peaks
+        values = values.assign_coords(dac_level_fsh=res["dac_level_fsh"])
+    return _finish(values, grid, name="amplitude_fsh", units="%FSH",
                    long_name=f"gate {gate.name} peak amplitude", step="amplitude_map", params=params,
                    source=res, gate_result=res)
 

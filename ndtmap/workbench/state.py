@@ -68,13 +68,13 @@ from ndtmap.gates import (
 )
 from ndtmap.grid.geometry import part_constants
 from ndtmap.grid.schema import ascan_in_fsh, check_grid, grid_attr, missing_ascans
-from ndtmap.indications import LengthResult, detect_indications, drop_length
+from ndtmap.indications import LengthResult, RecordingCurve, detect_indications, drop_length, map_detection_level
 from ndtmap.plot import GateMark, IndicationOutline, SectionGate
 from ndtmap.plot import indication_outlines as outlines_on_map
 from ndtmap.procedure import Analysis, Procedure, first_look_procedure, load_procedure, run_procedure
 from ndtmap.procedure import save_procedure as write_procedure
 from ndtmap.scans import MAP_KINDS, amplitude_map, b_scan, backwall_loss_map, d_scan, depth_map, thickness_map
-from ndtmap.signal import detected_signal
+from ndtmap.signal import DacCurve, detected_signal
 from ndtmap.workbench import _compute as cx
 
 __all__ = ["TOOLS", "WorkbenchState", "AScanView", "DropMeasurement", "default_procedure"]
@@ -90,7 +90,7 @@ GATE_FIELDS = ("start", "end", "unit", "threshold_fsh", "mode", "follows")
 _KEEP: Any = object()  # an argument left out: the setting stays as it is
 #: Settings compared with the procedure the workbench started from.
 _SETTINGS = ("detection_gate", "backwall_gate", "backwall_nominal_fsh", "backwall_loss_threshold_db", "min_area_mm2",
-             "min_positions", "detect", "edge")
+             "min_positions", "detect", "edge", "recording")
 
 
 @dataclass(frozen=True)
@@ -564,8 +564,38 @@ class WorkbenchState:
         return self._missing  # type: ignore[return-value]
 
     def gate_key(self, name: str | None = None) -> tuple[Any, ...]:
-        """Cache key of a gate: its definition, those of the gates it follows, the detection signal."""
-        return cx.chain_key(gate_chain(self.gates, self.gate(name).name), self._settings.detect)
+        """Cache key of a gate: its definition, those of the gates it follows, the detection signal (and the
+        recording curve of a gate whose level is re the DAC)."""
+        chain = gate_chain(self.gates, self.gate(name).name)
+        key = cx.chain_key(chain, self._settings.detect)
+        return (*key, self._settings.recording) if any(g.level_re_curve for g in chain) else key
+
+    def recording_curve(self, *, progress: cx.Progress | None = None) -> DacCurve | None:
+        """The settings' recording curve as the indication list uses it: the DAC, or the DGS curve built from
+        the measured back-wall echo (None without a [recording] curve)."""
+        rec = self._settings.recording
+        if rec is None:
+            return None
+        if rec.kind == "dac":
+            return rec.dac
+        return self.analysis(progress=progress).curve
+
+    def _gates_curve(self) -> DacCurve | None:
+        """The recording curve when a gate has its level re the DAC (its events need it), else None."""
+        return self.recording_curve() if any(g.level_re_curve for g in self.gates) else None
+
+    def set_recording(self, recording: RecordingCurve | None) -> Procedure:
+        """Change the recording curve (DAC points or a DGS level; None for none) of the settings.
+
+        Raises
+        ------
+        ProcedureError
+            A gate has its level re the DAC and `recording` is None, or a DGS
+            level from the back wall without a back-wall gate; the settings
+            are left as they were.
+        """
+        self._settings = replace(self._settings, recording=recording)
+        return self._settings
 
     def has_gate_result(self, name: str | None = None) -> bool:
         """True when the result of the gate is in the cache (no computation needed)."""
@@ -593,11 +623,14 @@ class WorkbenchState:
         chain = gate_chain(self.gates, gate.name)
         detect = self._settings.detect
 
+        curve = self.recording_curve(progress=progress) if any(g.level_re_curve for g in chain) else None
+
         def make() -> xr.Dataset:
-            res = evaluate_gate(self._cut_grid(chain, detect, progress), gate, others=chain[1:], detect=detect)
+            res = evaluate_gate(self._cut_grid(chain, detect, progress), gate, others=chain[1:], detect=detect,
+                                dac=curve)
             return cx.computed(res, progress, f"gate {gate.name}")
 
-        return self._cached(cx.chain_key(chain, detect), make)
+        return self._cached(self.gate_key(gate.name), make)
 
     def _thickness(self, g: Gate, res: xr.Dataset, progress: cx.Progress | None) -> xr.DataArray:
         """Wall thickness under gate `g`: from pulse entry, or from the interface echo on an immersion grid."""
@@ -687,7 +720,7 @@ class WorkbenchState:
         if self.grid["ascan"].attrs.get("signal", "rf") == "rf":
             rf = np.asarray(cx.computed(ascan_in_fsh(sub), None, "").values[0, 0], dtype=np.float64)
         missing = bool(cx.computed(missing_ascans(sub), None, "").values[0, 0])
-        results = evaluate_gates(sub, list(self.gates), detect=detect)
+        results = evaluate_gates(sub, list(self.gates), detect=detect, dac=self._gates_curve())
         marks = []
         for g in self.gates:
             r = cx.computed(results[g.name], None, "")
@@ -722,7 +755,7 @@ class WorkbenchState:
             sec = d_scan(sub, float(self._scan[i]), detect=detect)
             pos, squeeze = self._index, {"scan": 0}
         sec = cx.computed(sec, None, "")
-        results = evaluate_gates(sub, list(self.gates), detect=detect)
+        results = evaluate_gates(sub, list(self.gates), detect=detect, dac=self._gates_curve())
         lines = []
         for g in self.gates:
             r = cx.computed(results[g.name], None, "")
@@ -804,14 +837,15 @@ class WorkbenchState:
         inside = mg.inside_map(pts, scan, index) & np.isfinite(prof)
         cells = mg.nearest_cell(pts, scan, index)
         best, best_value = None, -math.inf
-        for ind in detect_indications(amp, threshold_fsh=g.threshold_fsh):
+        level = map_detection_level(amp)  # the gate's own level (per position for a level re the DAC)
+        for ind in detect_indications(amp, **level):
             hit = ind.region[cells] & inside
             if hit.any() and float(prof[hit].max()) > best_value:
                 best, best_value = ind, float(prof[hit].max())
         if best is None:
             raise SizingError(
                 f"the line ({p0[0]:g}, {p0[1]:g}) -> ({p1[0]:g}, {p1[1]:g}) mm crosses no indication at or above "
-                f"the threshold of gate {g.name!r} ({g.threshold_fsh:g} %FSH); draw it through an indication or "
+                f"the threshold of gate {g.name!r} ({g.level_text()}); draw it through an indication or "
                 "lower the threshold"
             )
         res = drop_length(amp, best, drop_db=self.drop_db, line=(p0, p1), edge=self._settings.edge)

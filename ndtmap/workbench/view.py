@@ -649,7 +649,8 @@ class Workbench:
             c["start"].value = g.start
             c["end"].value = g.end
             c["unit"].value = g.unit
-            c["threshold"].value = g.threshold_fsh
+            c["threshold"].disabled = g.level_re_curve  # a level re the DAC has no single %FSH value
+            c["threshold"].value = g.threshold_fsh if g.threshold_fsh is not None else 0.0
             c["mode"].value = g.mode
             c["follows"].value = g.follows or ""
             c["detect"].value = st.settings.detect
@@ -670,6 +671,8 @@ class Workbench:
         fields = {"start": float(c["start"].value), "end": float(c["end"].value),
                   "threshold_fsh": float(c["threshold"].value), "mode": c["mode"].value,
                   "follows": c["follows"].value or None}
+        if self.state.gate(self.state.active_gate).level_re_curve:
+            del fields["threshold_fsh"]  # the level stays in dB re the DAC
         done = self._guard(lambda: self.state.set_gate(self.state.active_gate, **fields), self.gate_message)
         if done is None:
             self._sync_gate_controls()

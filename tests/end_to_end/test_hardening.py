@@ -159,8 +159,10 @@ def test_float16_input_is_widened():
     assert g.ascan.dtype == np.float32
 
 
-def test_gain_past_full_scale_is_flagged_saturated():
-    # time-corrected gain may lift an echo past the digitiser full scale: the peak is then not a measurement
+def test_gain_past_full_scale_is_not_saturated_when_the_record_was_not_clipped():
+    # time-corrected gain is applied after digitising: it may lift an unclipped echo past the digitiser full scale
+    # without clipping it, so the peak stays a measurement and is not flagged saturated; a record that reached the
+    # full scale is (see tests/indications/test_recording_levels.py for the clipped case after TCG)
     t = np.arange(500) * 0.02
     echo = 60.0 * np.exp(-0.5 * ((t - 5.0) / 0.1) ** 2) * np.cos(2 * np.pi * 5 * (t - 5.0))
     a = np.zeros((9, 9, t.size), np.float32)
@@ -171,7 +173,11 @@ def test_gain_past_full_scale_is_flagged_saturated():
     m = amplitude_map(boosted, Gate("g", 5.0, 25.0))
     recs = size_indications(m, threshold_fsh=50.0)
     assert recs and recs[0]["peak_fsh"] > 100
-    assert "saturated" in recs[0]["flags"]
+    assert "saturated" not in recs[0]["flags"]
+    clipped = apply_tcg(g.assign(ascan=g.ascan.clip(-50.0, 50.0)).assign_attrs(digitiser_full_scale_fsh=50.0),
+                        dac_curve([5.0, 20.0], [20.0, 10.0]), target_fsh=80.0)
+    recs = size_indications(amplitude_map(clipped, Gate("g", 5.0, 25.0)), threshold_fsh=50.0)
+    assert recs and "saturated" in recs[0]["flags"]
 
 
 def test_bundle_never_writes_outside_its_folder(tmp_path):

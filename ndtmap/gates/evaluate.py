@@ -196,6 +196,17 @@ class _Evaluator:
         a = whole_time(a)
         return a, {"scale": scale, "rectify": rectify, "check_record": not integer, "threads": threads_for(a)}
 
+    def infinite_in(self, data: xr.DataArray, first: int, last: int) -> xr.DataArray:
+        """True where an A-scan of `data` holds an infinite sample between samples `first` and `last`.
+
+        Such an A-scan is missing (:func:`ndtmap.grid.schema.missing_ascans`:
+        a NaN or infinite sample anywhere), like a NaN one. The compiled
+        kernel finds NaN anywhere and infinities outside the window itself;
+        this check of the samples it reads as the window makes the rule hold
+        whatever the kernel does with an infinity there.
+        """
+        return np.isinf(data.isel(time=slice(first, last + 1))).any("time")
+
     def relative_us(self, gate: Gate) -> tuple[float, float]:
         if gate.unit == "us":
             return gate.start, gate.end
@@ -266,6 +277,7 @@ class _Evaluator:
         dt = self.pc.dt_us
         kwargs: dict[str, Any] = {"dt_us": dt, "threshold": gate.threshold_fsh, "hold": self.hold}
         outside = w_start = w_end = None
+        infinite = None  # compiled float data: A-scans with an infinite sample where the kernel reads the window
         if gate.follows is None:
             a, b = self.window_us(gate)
             i0 = int(max(0, self._sample(a, np.ceil)))
@@ -274,6 +286,8 @@ class _Evaluator:
             if self.kernel == "compiled":
                 data, conversion = self._compiled_input()
                 kwargs.update(conversion, base=i0, length=i1 - i0 + 1, start=0.0, end=float(i1 - i0))
+                if conversion["check_record"]:
+                    infinite = self.infinite_in(data, i0, i1)
                 outs = xr.apply_ufunc(
                     gate_outputs_compiled, data, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
                     kwargs=kwargs, dask="allowed",
@@ -301,6 +315,8 @@ class _Evaluator:
             if self.kernel == "compiled":
                 data, conversion = self._compiled_input()
                 kwargs.update(conversion, base=k0, length=k1 - k0 + 1)
+                if conversion["check_record"]:
+                    infinite = self.infinite_in(data, k0, k1)
                 outs = xr.apply_ufunc(
                     gate_outputs_compiled, data, i0, i1, input_core_dims=[["time"], [], []],
                     output_core_dims=[[], [], [], []], kwargs=kwargs, dask="allowed",
@@ -323,6 +339,8 @@ class _Evaluator:
             amp = cross_peak.where(trig, peak)
             time = cross_time
         ok = self.ok_mask()
+        if infinite is not None:
+            ok = ~infinite if ok is None else ok & ~infinite
         if ok is not None:
             amp = amp.where(ok)
             trig = trig & ok

@@ -132,6 +132,8 @@ def _envelope_kernel(x: np.ndarray, missing: np.ndarray | None = None, *, scale:
         else:
             a = block.astype(np.float32, copy=False)
         a = a.astype(np.float64)
+        nonfinite = ~np.isfinite(a).all(axis=-1)  # a missing A-scan (NaN or infinite sample): NaN, quietly
+        a[nonfinite] = 0.0
         spectrum = sp_fft.rfft(a, axis=-1)
         spectrum *= turn
         h = sp_fft.irfft(spectrum, n=n, axis=-1)
@@ -139,6 +141,7 @@ def _envelope_kernel(x: np.ndarray, missing: np.ndarray | None = None, *, scale:
         np.multiply(h, h, out=h)
         a += h
         np.sqrt(a, out=a)
+        a[nonfinite] = np.nan
         if gone is not None:
             a[gone[r0:r0 + per]] = np.nan
         flat[r0:r0 + per] = a

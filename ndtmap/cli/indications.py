@@ -67,6 +67,8 @@ def _print_table(args: argparse.Namespace, procedure: Any, analysis: Any) -> Non
     print(indications_text(analysis.indications))
     if analysis.screening is not None:
         print(f"screening ({analysis.screening.get('rules') or 'rules'}): {analysis.screening['overall']}")
+        for s in analysis.screening["indications"]:
+            print(f"  indication {s['id']}: {s['statement']}")
     for note in analysis.notes:
         print(f"note: {note}")
     for caution in analysis.cautions:

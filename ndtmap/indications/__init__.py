@@ -36,6 +36,8 @@ from ndtmap.indications.echoes import (
 from ndtmap.indications.flags import (
     FLAG_MEANINGS,
     FLAGS,
+    SCREENING_UNDERMINED_BY,
+    UNDERMINING_FLAGS,
     beam_size_flags,
     explain,
     is_low_snr,
@@ -127,6 +129,8 @@ __all__ = [
     "dgs_diagram",
     "FLAG_MEANINGS",
     "FLAGS",
+    "SCREENING_UNDERMINED_BY",
+    "UNDERMINING_FLAGS",
     "is_saturated",
     "is_smaller_than_beam",
     "beam_size_flags",

@@ -71,6 +71,8 @@ from ndtmap.indications.sizing import LengthResult, ProbeBeam, point_reflector_r
 __all__ = [
     "FLAG_MEANINGS",
     "FLAGS",
+    "SCREENING_UNDERMINED_BY",
+    "UNDERMINING_FLAGS",
     "is_saturated",
     "is_smaller_than_beam",
     "beam_size_flags",
@@ -104,6 +106,41 @@ FLAG_MEANINGS: dict[str, str] = {
 
 #: The flag names, in report order.
 FLAGS: tuple[str, ...] = tuple(FLAG_MEANINGS)
+
+#: The flags that undermine a value screening compares with a limit, and how, per group of
+#: quantities: ``"lower_bound"`` (the true value may be larger, not smaller: an exceeded limit stays
+#: exceeded, "within" cannot be said) or ``"uncertain"`` (it may be larger or smaller: neither can be
+#: said). Groups: ``size`` (6 dB lengths, area), ``size_20db`` (beam-corrected 20 dB lengths), ``ers``
+#: (DGS size), ``amplitude`` (peak %FSH or dB, also against the recording level), ``backwall_loss``
+#: and ``count`` (whether the record is a reflector of its own, for density rules). A flag not listed
+#: (``low_snr``, ``beam_limited_20db``) leaves screening as it is. ``methods_disagree`` (two applicable
+#: sizing methods disagree by more than their uncertainty) is read by name wherever it is set.
+#: Used by :func:`ndtmap.indications.rules.screen`; see docs/indications-and-sizing.md.
+SCREENING_UNDERMINED_BY: dict[str, dict[str, str]] = {
+    # clipped peak: drops measured from a wrong reference (either way for a real echo dynamic); the
+    # true peak, hence the DGS size and a loss re a clipped reference, is higher
+    "saturated": {"size": "uncertain", "size_20db": "uncertain", "ers": "lower_bound", "amplitude": "lower_bound",
+                  "backwall_loss": "lower_bound"},
+    # the drop measured the beam, not the reflector
+    "smaller_than_beam": {"size": "uncertain", "size_20db": "uncertain"},
+    # cut by the edge of the scan: sizes, the peak and what rests on it can only be larger
+    "at_scan_edge": {"size": "lower_bound", "size_20db": "lower_bound", "ers": "lower_bound",
+                     "amplitude": "lower_bound", "backwall_loss": "lower_bound"},
+    # missing A-scans: edges may sit anywhere in the gap; the peak may lie in it
+    "data_gap": {"size": "uncertain", "size_20db": "uncertain", "ers": "lower_bound", "amplitude": "lower_bound",
+                 "backwall_loss": "lower_bound"},
+    # maybe not a reflector of its own: nothing about it can be said either way
+    "repeat_echo": dict.fromkeys(("size", "size_20db", "ers", "amplitude", "backwall_loss", "count"), "uncertain"),
+    "backwall_echo": dict.fromkeys(("size", "size_20db", "ers", "amplitude", "backwall_loss", "count"),
+                                   "uncertain"),
+    # two sizing methods disagree: the record holds the larger, the smaller may be right
+    "methods_disagree": {"size": "uncertain", "size_20db": "uncertain"},
+    # sizes resting on the near-field beam model: estimates
+    "near_field": {"size": "uncertain", "size_20db": "uncertain", "ers": "uncertain"},
+}
+
+#: The names of the flags that undermine screening (:data:`SCREENING_UNDERMINED_BY`).
+UNDERMINING_FLAGS: frozenset[str] = frozenset(SCREENING_UNDERMINED_BY)
 
 
 def is_saturated(peak_fsh: float | None, *, full_scale_fsh: float = 100.0, rtol: float = 1e-3) -> bool:

@@ -7,10 +7,12 @@ reporting limits on single indications (length, area, equivalent size,
 back-wall loss, amplitude) and limits on the number of indications per
 square metre of scanned area. Nothing of any code or standard is built in.
 
-Screening only says, per indication and overall, "exceeds rule <name>" or
-"within rules" (or "below recording level <name>"). It never accepts or
-rejects: every result carries :data:`ndtmap.CAUTION`, because acceptance is
-decided by qualified personnel under the applicable code.
+Screening only says, per indication and overall, "exceeds rule <name>",
+"within rules", "below recording level <name>" or, where validity flags
+undermine the value a rule reads (:data:`ndtmap.indications.flags.SCREENING_UNDERMINED_BY`),
+"not screened: review required (<flags>)". It never accepts or rejects:
+every result carries :data:`ndtmap.CAUTION`, because acceptance is decided by
+qualified personnel under the applicable code.
 """
 
 from __future__ import annotations
@@ -27,10 +29,13 @@ from ndtmap._shared.caution import CAUTION
 from ndtmap._shared.validate import positive_float
 from ndtmap.errors import FileFormatError, ParameterTypeError, ProcedureError
 from ndtmap.indications.detection import Indication
+from ndtmap.indications.flags import FLAGS, SCREENING_UNDERMINED_BY
 from ndtmap.indications.record import IndicationRecord
 
 __all__ = [
     "QUANTITIES",
+    "QUANTITY_GROUPS",
+    "REVIEW_REQUIRED",
     "RecordingLevel",
     "Limit",
     "DensityLimit",
@@ -56,7 +61,24 @@ QUANTITIES: dict[str, str] = {
     "peak_db": "peak amplitude in dB re the reference level (DAC or reference reflector)",
 }
 
+#: The group of each quantity in :data:`ndtmap.indications.flags.SCREENING_UNDERMINED_BY` (which flags
+#: undermine it, and how).
+QUANTITY_GROUPS: dict[str, str] = {
+    "length_mm": "size",
+    "length_scan_mm": "size",
+    "length_index_mm": "size",
+    "length_20db_mm": "size_20db",
+    "area_mm2": "size",
+    "ers_mm": "ers",
+    "backwall_loss_db": "backwall_loss",
+    "peak_fsh": "amplitude",
+    "peak_db": "amplitude",
+}
+
 KINDS = ("amplitude", "backwall_loss")
+
+#: The start of the statement for an indication (or a scan) that screening cannot settle.
+REVIEW_REQUIRED = "not screened: review required"
 
 _TOP_KEYS = {"name", "description", "recording", "limit", "density"}
 _RECORDING_KEYS = {"name", "description", "level_fsh", "level_db"}
@@ -128,6 +150,8 @@ class IndicationScreening:
     exceeded: tuple[str, ...] = ()
     not_evaluated: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    open_rules: tuple[str, ...] = ()
+    review_flags: tuple[str, ...] = ()
 
     def as_dict(self) -> dict[str, Any]:
         """Plain JSON-serialisable dict."""
@@ -138,6 +162,8 @@ class IndicationScreening:
             "exceeded": list(self.exceeded),
             "not_evaluated": list(self.not_evaluated),
             "notes": list(self.notes),
+            "open_rules": list(self.open_rules),
+            "review_flags": list(self.review_flags),
         }
 
 
@@ -152,13 +178,22 @@ class ScreeningResult:
     exceeded : tuple of str
         Names of every rule exceeded by any indication or by the density.
     overall : str
-        ``"within rules"`` or ``"exceeds rule <a>; exceeds rule <b>"``.
+        ``"within rules"``, ``"exceeds rule <a>; exceeds rule <b>"``, either
+        followed by (or, alone) ``"not screened: review required (...)"`` when
+        validity flags leave a rule open for some indication or density.
     densities_per_m2 : dict
-        Density rule name -> indications per m^2 counted for it.
+        Density rule name -> recorded indications per m^2 counted for it (every
+        recorded indication, flagged or not).
     scanned_area_mm2 : float
         Area the densities refer to.
     caution : str
         Always :data:`ndtmap.CAUTION`.
+    review_required : tuple of int
+        Ids of the indications whose screening flags leave open.
+    open_rules : tuple of str
+        Rules left open for some indication or density by validity flags.
+    review_flags : tuple of str
+        The flags that left them open.
     """
 
     indications: tuple[IndicationScreening, ...]
@@ -168,6 +203,9 @@ class ScreeningResult:
     scanned_area_mm2: float = 0.0
     rules_name: str = ""
     caution: str = field(default_factory=lambda: _caution())
+    review_required: tuple[int, ...] = ()
+    open_rules: tuple[str, ...] = ()
+    review_flags: tuple[str, ...] = ()
 
     def for_id(self, id: int) -> IndicationScreening:
         """The screening of the indication with this id."""
@@ -186,6 +224,9 @@ class ScreeningResult:
             "scanned_area_mm2": self.scanned_area_mm2,
             "indications": [s.as_dict() for s in self.indications],
             "caution": self.caution,
+            "review_required": list(self.review_required),
+            "open_rules": list(self.open_rules),
+            "review_flags": list(self.review_flags),
         }
 
 
@@ -486,25 +527,75 @@ def _screened(ind: Any, k: int) -> _Screened:
     )
 
 
-def _statement(exceeded: Iterable[str]) -> str:
-    names = list(exceeded)
-    return "; ".join(f"exceeds rule {n}" for n in names) if names else "within rules"
+def _statement(exceeded: Iterable[str], review: str = "") -> str:
+    """``exceeds rule <a>; ...``, then ``not screened: review required (<review>)`` when `review` is given."""
+    parts = [f"exceeds rule {n}" for n in exceeded]
+    if review:
+        parts.append(f"{REVIEW_REQUIRED} ({review})")
+    return "; ".join(parts) if parts else "within rules"
+
+
+def _in_flag_order(names: Iterable[str]) -> tuple[str, ...]:
+    """Distinct names in report order (:data:`FLAGS`), names not in it (e.g. ``methods_disagree``) after."""
+    given = list(dict.fromkeys(names))
+    rank = {f: k for k, f in enumerate(FLAGS)}
+    return tuple(sorted(given, key=lambda f: (rank.get(f, len(rank)), given.index(f))))
+
+
+def _undermined(flags: Iterable[str], group: str) -> tuple[str | None, tuple[str, ...]]:
+    """How `flags` undermine a quantity group: None, ``"lower_bound"`` or ``"uncertain"``; and the flags that do."""
+    found = {f: SCREENING_UNDERMINED_BY[f][group] for f in flags if group in SCREENING_UNDERMINED_BY.get(f, {})}
+    if not found:
+        return None, ()
+    how = "uncertain" if "uncertain" in found.values() else "lower_bound"
+    return how, _in_flag_order(found)
+
+
+def _open_note(rule: str, what: str, value: float, max_: float, how: str, by: Iterable[str]) -> str:
+    sign = ">" if value > max_ else "<="
+    why = "a lower bound" if how == "lower_bound" else "not a firm value"
+    return f"{rule}: {what} {value:.4g} {sign} {max_:.4g}, but it is {why} ({', '.join(by)}): not screened"
+
+
+def _recording_open(item: _Screened, rl: RecordingLevel, notes: list[str], not_eval: list[str]) -> bool | None:
+    """The recording level: False (below it, not recorded), True (recorded) or None (flags leave it open)."""
+    key, level = ("peak_fsh", rl.level_fsh) if rl.level_fsh is not None else ("peak_db", rl.level_db)
+    v = item.values[key]
+    if v is None:
+        not_eval.append(f"{rl.name}: no {key}")
+        notes.append(f"recording level {rl.name} not evaluated (no {key}); screened as recorded")
+        return True
+    if v >= level:
+        return True
+    how, by = _undermined(item.flags, "amplitude")
+    if how is None:
+        return False
+    notes.append(_open_note(rl.name, f"{key} (recording level)", v, float(level), how, by)
+                 + "; screened as recorded")
+    return None
 
 
 def _screen_one(item: _Screened, rules: Rules) -> IndicationScreening:
-    """The screening of one indication against the recording level and the limits."""
+    """The screening of one indication against the recording level and the limits.
+
+    A limit whose quantity the indication's flags undermine
+    (:data:`ndtmap.indications.flags.SCREENING_UNDERMINED_BY`) is exceeded
+    only when the value exceeds it and is a lower bound; otherwise it is left
+    open and the statement says ``not screened: review required (<flags>)``.
+    """
     notes: list[str] = []
     not_eval: list[str] = []
+    open_rules: list[str] = []
+    review: list[str] = []
     rl = rules.recording
     if rl is not None and item.kind == "amplitude":
-        key, level = ("peak_fsh", rl.level_fsh) if rl.level_fsh is not None else ("peak_db", rl.level_db)
-        v = item.values[key]
-        if v is None:
-            not_eval.append(f"{rl.name}: no {key}")
-            notes.append(f"recording level {rl.name} not evaluated (no {key}); screened as recorded")
-        elif v < level:
+        recorded = _recording_open(item, rl, notes, not_eval)
+        if recorded is False:
             return IndicationScreening(item.id, False, f"below recording level {rl.name}", (), tuple(not_eval),
                                        tuple(notes))
+        if recorded is None:
+            open_rules.append(rl.name)
+            review.extend(_undermined(item.flags, "amplitude")[1])
     exceeded: list[str] = []
     for lim in rules.limits:
         if lim.kind is not None and lim.kind != item.kind:
@@ -513,19 +604,39 @@ def _screen_one(item: _Screened, rules: Rules) -> IndicationScreening:
         if v is None:
             not_eval.append(f"{lim.name}: no {lim.quantity}")
             continue
-        sized = lim.quantity.startswith(("length", "area"))
-        if v > lim.max:
+        how, by = _undermined(item.flags, QUANTITY_GROUPS[lim.quantity])
+        if v > lim.max and how != "uncertain":
             exceeded.append(lim.name)
-        elif sized and "at_scan_edge" in item.flags:
-            notes.append(f"{lim.name}: {lim.quantity} is a lower bound (at_scan_edge)")
-        if sized and "saturated" in item.flags:
-            notes.append(f"{lim.name}: {lim.quantity} from a saturated peak is not valid")
-        if lim.quantity == "ers_mm" and "saturated" in item.flags:
-            notes.append(f"{lim.name}: ers_mm from a saturated peak is a lower bound")
-    statement = _statement(exceeded)
+            if how is not None:
+                notes.append(f"{lim.name}: {lim.quantity} {v:.4g} > {lim.max:.4g} and is a lower bound "
+                             f"({', '.join(by)}): exceeded whatever the true value")
+        elif how is not None:
+            open_rules.append(lim.name)
+            review.extend(by)
+            notes.append(_open_note(lim.name, lim.quantity, v, lim.max, how, by))
+    flags = _in_flag_order(review)
+    statement = _statement(exceeded, ", ".join(flags))
     if not_eval:
         statement += " (not evaluated: " + ", ".join(n.split(":")[0] for n in not_eval) + ")"
-    return IndicationScreening(item.id, True, statement, tuple(exceeded), tuple(not_eval), tuple(notes))
+    return IndicationScreening(item.id, True, statement, tuple(exceeded), tuple(not_eval), tuple(notes),
+                               tuple(open_rules), flags)
+
+
+def _counts_in_doubt(item: _Screened, screening: IndicationScreening, rules: Rules) -> bool:
+    """True when a recorded indication may not count for a density: maybe not a reflector, or maybe not recorded."""
+    unsure_recording = rules.recording is not None and rules.recording.name in screening.open_rules
+    return unsure_recording or _undermined(item.flags, "count")[0] is not None
+
+
+def _overall_review(ids: Iterable[int], densities: Iterable[str], flags: Iterable[str]) -> str:
+    """``indications 2, 3 and rule <d>: <flags>``: where screening is left open, and by which flags."""
+    where = []
+    ids, densities = list(ids), list(densities)
+    if ids:
+        where.append(("indication " if len(ids) == 1 else "indications ") + ", ".join(str(i) for i in ids))
+    if densities:
+        where.append(("rule " if len(densities) == 1 else "rules ") + ", ".join(densities))
+    return f"{' and '.join(where)}: {', '.join(_in_flag_order(flags))}" if where else ""
 
 
 def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float) -> ScreeningResult:
@@ -548,8 +659,21 @@ def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float)
     Returns
     -------
     ScreeningResult
-        Per indication and overall "exceeds rule <name>" or "within rules",
-        with :data:`ndtmap.CAUTION`.
+        Per indication and overall "exceeds rule <name>", "within rules" or
+        "not screened: review required (<flags>)", with :data:`ndtmap.CAUTION`.
+
+    Notes
+    -----
+    A flag of :data:`ndtmap.indications.flags.SCREENING_UNDERMINED_BY`
+    undermines the quantities of some groups. A limit on such a quantity is
+    "exceeded" only when the value exceeds it and the flags make it a lower
+    bound (the true value can only be larger); otherwise the limit is left
+    open, the indication is never "within rules" and its statement ends with
+    "not screened: review required (<flags>)". The same holds for the
+    recording level when the peak is undermined. Density rules count every
+    recorded indication; one exceeded only by counting indications that may
+    not be reflectors of their own (``repeat_echo``, ``backwall_echo``) or
+    whose recording is open is left open too.
 
     Examples
     --------
@@ -559,6 +683,9 @@ def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float)
     ('exceeds rule long', 'exceeds rule long')
     >>> "qualified personnel" in res.caution
     True
+    >>> edge = {"id": 2, "kind": "amplitude", "length_scan_mm": 8.0, "flags": ["at_scan_edge"]}
+    >>> screen([edge], rules, scanned_area_mm2=1e4).indications[0].statement
+    'not screened: review required (at_scan_edge)'
     """
     if not isinstance(rules, Rules):
         raise ParameterTypeError(f"`rules` must be Rules (from load_rules), got {type(rules).__name__}")
@@ -566,26 +693,39 @@ def screen(indications: Iterable[Any], rules: Rules, *, scanned_area_mm2: float)
     items = [_screened(ind, k) for k, ind in enumerate(indications)]
     out: list[IndicationScreening] = []
     all_exceeded: list[str] = []
-    recorded: list[_Screened] = []
+    recorded: list[tuple[_Screened, bool]] = []  # (item, whether its count is in doubt)
     for item in items:
         screening = _screen_one(item, rules)
         out.append(screening)
         if screening.recorded:
-            recorded.append(item)
+            recorded.append((item, _counts_in_doubt(item, screening, rules)))
             all_exceeded.extend(n for n in screening.exceeded if n not in all_exceeded)
+    open_rules = [n for s in out for n in s.open_rules]
+    review_flags = [f for s in out for f in s.review_flags]
+    open_densities: list[str] = []
     densities: dict[str, float] = {}
     for dl in rules.densities:
-        count = sum(1 for r in recorded if dl.kind is None or r.kind == dl.kind)
-        per_m2 = count / (area * 1e-6)
+        counted = [(r, doubt) for r, doubt in recorded if dl.kind is None or r.kind == dl.kind]
+        per_m2 = len(counted) / (area * 1e-6)
+        firm_per_m2 = sum(1 for _, doubt in counted if not doubt) / (area * 1e-6)
         densities[dl.name] = per_m2
-        if per_m2 > dl.max_per_m2 and dl.name not in all_exceeded:
-            all_exceeded.append(dl.name)
+        if firm_per_m2 > dl.max_per_m2:
+            if dl.name not in all_exceeded:
+                all_exceeded.append(dl.name)
+        elif per_m2 > dl.max_per_m2:  # exceeded only with indications that may not count
+            open_densities.append(dl.name)
+            review_flags.extend(f for r, doubt in counted if doubt for f in r.flags if f in SCREENING_UNDERMINED_BY)
+    review_ids = tuple(s.id for s in out if s.open_rules)
+    review_flags_t = _in_flag_order(review_flags)
     return ScreeningResult(
         indications=tuple(out),
         exceeded=tuple(all_exceeded),
-        overall=_statement(all_exceeded),
+        overall=_statement(all_exceeded, _overall_review(review_ids, open_densities, review_flags_t)),
         densities_per_m2=densities,
         scanned_area_mm2=area,
         rules_name=rules.name,
         caution=_caution(),
+        review_required=review_ids,
+        open_rules=tuple(dict.fromkeys([*open_rules, *open_densities])),
+        review_flags=review_flags_t,
     )

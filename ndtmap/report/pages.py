@@ -25,6 +25,7 @@ from ndtmap._shared.caution import CAUTION
 from ndtmap._version import __version__
 from ndtmap.grid.schema import grid_attr
 from ndtmap.indications.flags import FLAG_MEANINGS
+from ndtmap.indications.rules import REVIEW_REQUIRED
 from ndtmap.report.figures import FIGURE_SIZES
 from ndtmap.report.results import LARGEST_BY, FigureFile, PartReport, ReportError, largest_summary, relative_path
 from ndtmap.report.text import fmt_number
@@ -322,6 +323,16 @@ def render_part_page(page: PartPage) -> str:
 # --------------------------------------------------------------------------- the summary of a batch
 
 
+def _rules_cell(p: PartReport) -> str:
+    """The rules a part exceeds, and whether validity flags leave some of its screening open."""
+    if p.screening is None:
+        return "no rules"
+    text = ", ".join(p.rules_exceeded) if p.rules_exceeded else "none"
+    if REVIEW_REQUIRED in p.screening:
+        text += "; review required (validity flags)"
+    return text
+
+
 def _part_row(p: PartReport, root: Path) -> dict[str, str]:
     lg = p.largest
     return {
@@ -330,7 +341,7 @@ def _part_row(p: PartReport, root: Path) -> dict[str, str]:
         "source": p.source,
         "indications": f"{p.n_indications} ({p.n_amplitude} amplitude, {p.n_backwall_loss} back-wall loss)",
         "largest": f"#{lg['id']}: {lg['length_mm']:.1f} mm ({lg['axis']})" if lg else "-",
-        "rules": ", ".join(p.rules_exceeded) if p.rules_exceeded else ("none" if p.screening else "no rules"),
+        "rules": _rules_cell(p),
         "settings": "first look" if p.first_look else "procedure",
     }
 

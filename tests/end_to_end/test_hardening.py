@@ -4,6 +4,7 @@ numeric traps.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import os
 import signal
@@ -19,7 +20,6 @@ import xarray as xr
 
 from ndtmap import make_grid
 from ndtmap.cli import main
-from ndtmap.errors import NdtmapError
 from ndtmap.gates import Gate
 from ndtmap.indications import size_indications
 from ndtmap.io import open_grid, save_grid
@@ -180,20 +180,58 @@ def test_gain_past_full_scale_is_not_saturated_when_the_record_was_not_clipped()
     assert recs and "saturated" in recs[0]["flags"]
 
 
-def test_bundle_never_writes_outside_its_folder(tmp_path):
-    # a grid file named like a path escape still writes inside the output folder only
-    from ndtmap.report import write_report
+ESCAPING_PART_IDS = ("../escaped", "sub/../../escaped2")  # each would land in tmp_path, next to the output
 
-    g = small_grid()
-    g.attrs["part_id"] = "../../../outside"
+
+def _escaping_inputs(tmp_path: Path) -> list[Path]:
+    """Two grids named like path escapes, with a back wall so that the first-look procedure runs to the end."""
+    t = np.arange(400) * 0.02
+    pulse = 80.0 * np.exp(-0.5 * ((t - 3.378) / 0.12) ** 2) * np.cos(2 * np.pi * 5.0 * (t - 3.378))  # 10 mm steel
+    a = np.broadcast_to(pulse, (6, 5, t.size)).astype(np.float32)
+    g = make_grid(a, scan_mm=np.arange(6.0), index_mm=np.arange(5.0), time_us=t, velocity_m_s=5920,
+                  probe_frequency_mhz=5, probe_diameter_mm=10, attrs={"part_thickness_mm": 10.0})
     src = tmp_path / "in"
     src.mkdir()
-    path = src / "..%2F..%2Fevil.nc"
-    save_grid(g, path)
-    out = tmp_path / "out"
-    try:
-        write_report([path], out, formats=())
-    except NdtmapError:
-        pass  # a grid without a back wall cannot have a first-look procedure: that is fine here
-    outside = [p for p in tmp_path.rglob("*") if p.is_file() and not (p.is_relative_to(out) or p.is_relative_to(src))]
-    assert outside == []
+    paths = []
+    for k, pid in enumerate(ESCAPING_PART_IDS):
+        g.attrs["part_id"] = pid
+        paths.append(src / f"..%2F..%2Fevil{k}.nc")
+        save_grid(g, paths[-1])
+    return paths
+
+
+def _files_outside(tmp_path: Path) -> list[Path]:
+    """Every file under `tmp_path` that is neither an input (in/) nor in the report folder (out/)."""
+    return [p for p in tmp_path.rglob("*")
+            if p.is_file() and not (p.is_relative_to(tmp_path / "out") or p.is_relative_to(tmp_path / "in"))]
+
+
+def test_bundle_never_writes_outside_its_folder(tmp_path):
+    # grid files and part ids named like path escapes: a batch report writes its part folders inside only
+    from ndtmap.report import write_report
+
+    result = write_report(_escaping_inputs(tmp_path), tmp_path / "out", formats=())  # no error caught: it must end
+    assert result.exit_status == 0 and not result.errors
+    assert len(result.parts) == 2  # both part folders were written, so the check below saw them
+    for part in result.parts:
+        assert part.folder.parent == tmp_path / "out" and part.index_html.is_file()
+    assert _files_outside(tmp_path) == []
+
+
+def test_bundle_check_catches_a_file_written_outside(tmp_path, monkeypatch):
+    # the check of the test above is not vacuous: with both guards removed (part folders named from the raw
+    # part id, the writer's path check skipped), the report writes outside and the check says so
+    from ndtmap.report import bundle, write_report, writer
+
+    def unchecked(self, path):
+        target = path.resolve()
+        target.parent.mkdir(parents=True, exist_ok=True)
+        return target
+
+    monkeypatch.setattr(bundle, "safe_name", lambda text, default="part", **_: str(text) or default)
+    monkeypatch.setattr(writer.BundleWriter, "target", unchecked)
+    paths = _escaping_inputs(tmp_path)
+    with contextlib.suppress(ValueError):  # the summary cannot link a part folder outside: it stops there
+        write_report(paths, tmp_path / "out", formats=())
+    outside = _files_outside(tmp_path)
+    assert outside and {p.relative_to(tmp_path).parts[0] for p in outside} == {"escaped", "escaped2"}

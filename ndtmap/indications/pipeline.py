@@ -32,6 +32,7 @@ from ndtmap.errors import NdtmapError, ParameterError, ParameterTypeError
 from ndtmap.gates import Gate
 from ndtmap.indications.amplitude_sizing import finite_or_none, size_amplitude_indication
 from ndtmap.indications.backwall import BackwallReference, backwall_reference, loss_map_db
+from ndtmap.indications.depth_layers import DepthLayer, map_layer, touching_indications
 from ndtmap.indications.detection import Indication, detect_backwall_loss, detect_indications
 from ndtmap.indications.echoes import EchoCheck, EchoFindings
 from ndtmap.indications.equivalent_size import DgsInputs, dgs_equivalent_size
@@ -273,17 +274,20 @@ def _amplitude_records(
         tolerance_fraction=flag_options.repeat_tolerance_fraction, others=others,
     )
     found = echoes.findings(inds) if echoes is not None else {}
+    layers = _depth_layers(amp, inds)
     records = []
     for ind in inds:
-        sizes = size_amplitude_indication(amp, ind, attrs=attrs, options=sizing)
+        layer = layers.get(ind.id, DepthLayer(amp))
+        sizes = size_amplitude_indication(layer.amplitude_map, ind, attrs=attrs, options=sizing)
         ers = dgs_equivalent_size(ind, sizes, backwall=bw, inputs=dgs_inputs)
         validity, validity_notes = amplitude_flags(
             ind, noise_fsh=noise, full_scale_fsh=dgs_inputs.full_scale_fsh, min_snr_db=flag_options.min_snr_db,
             repeat_notes=repeats.get(ind.id, ()),
         )
-        notes = _distinct(sizes.notes + ers.notes + validity_notes) + ((_NOISE_UNKNOWN,) if noise is None else ())
+        notes = _distinct(layer.notes + sizes.notes + ers.notes + validity_notes) + (
+            (_NOISE_UNKNOWN,) if noise is None else ())
         echo = found.get(ind.id, EchoFindings())
-        flags = ordered_flags(sizes.flags + ers.flags + validity)
+        flags = ordered_flags(layer.flags + sizes.flags + ers.flags + validity)
         records.append(IndicationRecord(
             **_detected_fields(ind),
             sizing_method="6 dB drop",
@@ -310,6 +314,12 @@ def _amplitude_records(
             edge_rule=sizing.edge,
         ))
     return records
+
+
+def _depth_layers(amp: xr.DataArray, inds: list[Indication]) -> dict[int, DepthLayer]:
+    """The maps of the indications that border others at another depth (each sized on its own depth)."""
+    by_id = {ind.id: ind for ind in inds}
+    return {i: map_layer(amp, by_id[i], near) for i, near in touching_indications(inds).items()}
 
 
 def _loss_record(loss_map: xr.DataArray, ind: Indication, *, level_db: float, edge: str) -> IndicationRecord:

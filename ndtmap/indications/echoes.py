@@ -18,12 +18,24 @@ never changed afterwards. Flags found (vocabulary in
     At the indication's peak position the A-scan holds an echo at least as
     strong at 1/k of its depth (k = 2, 3), within the depth tolerance.
 ``backwall_echo``
-    The depth equals the nominal back-wall depth within the tolerance: a
-    geometry echo, not a reflector inside the wall.
+    Straight beam: the depth equals the nominal back-wall depth within one
+    echo half-length (:func:`echo_half_length_mm`, the pulse's depth
+    resolution from its centre frequency, bandwidth and the velocity; not a
+    fraction of the wall): a geometry echo, not a reflector inside the wall.
+    A reflector further above the back wall than that (3 mm above the back
+    wall of a 100 mm part with a 5 MHz probe) is a separate echo and is not
+    flagged.
 
-The tolerance is ``max(tolerance_mm, tolerance_fraction * depth)`` plus one
-echo half-length (the time extent of the pulse, from the probe's frequency and
-bandwidth), so that the diffraction phase of each echo does not matter.
+With an angle beam (``beam_angle_deg`` > 0) the back wall sends no echo
+back to the probe: an echo at the wall depth comes from a corner between a
+reflector and the far surface (a corner reflection, typically a
+surface-breaking crack at the far surface). It is not flagged
+``backwall_echo``; a note says so, and the indication is evaluated as a
+reflector.
+
+The tolerance of the repeat check is ``max(tolerance_mm, tolerance_fraction * depth)``
+plus one echo half-length, so that the diffraction phase of each echo does
+not matter.
 """
 
 from __future__ import annotations
@@ -110,7 +122,8 @@ def classify_echoes(
     multiples : tuple of int, default (2, 3)
         Repeat orders looked for.
     tolerance_mm, tolerance_fraction : float
-        Depth tolerance, see the module docstring.
+        Depth tolerance of the repeat check, see the module docstring (the
+        back-wall check uses one echo half-length).
     min_depth_mm : float, optional
         Shallowest depth searched for a primary (default: one echo length, to
         keep clear of the surface).
@@ -142,6 +155,7 @@ def classify_echoes(
     pc = part_constants(grid)
     depth = pc.depth_mm(pc.time_us)
     half = echo_half_length_mm(grid)
+    angle_deg = pc.beam_angle_deg
     floor = half * 2.0 if min_depth_mm is None else float(min_depth_mm)
     signal = ascan_in_fsh(grid)
     found: dict[int, EchoFindings] = {}
@@ -151,13 +165,15 @@ def classify_echoes(
         flags: list[str] = []
         notes: list[str] = []
         d, peak = float(ind.depth_mm), float(ind.peak_fsh)
-        if backwall_depth_mm is not None:
-            tol = max(tolerance_mm, tolerance_fraction * backwall_depth_mm) + half
-            if abs(d - backwall_depth_mm) <= tol:
+        if backwall_depth_mm is not None and abs(d - backwall_depth_mm) <= half:
+            if angle_deg > 0:
+                notes.append(_corner_note(backwall_depth_mm, angle_deg))
+            else:
                 flags.append("backwall_echo")
                 notes.append(
-                    f"the echo lies at the back-wall depth ({backwall_depth_mm:g} mm): a geometry echo of the "
-                    "back wall reached by the gate, not a reflector inside the wall"
+                    f"the echo lies at the back-wall depth ({backwall_depth_mm:g} mm, within one echo half-length "
+                    f"{half:.2f} mm): a geometry echo of the back wall reached by the gate, not a reflector inside "
+                    "the wall"
                 )
         a = np.abs(np.asarray(signal.sel(scan=ind.scan_mm, index=ind.index_mm, method="nearest").values,
                               dtype=np.float64))
@@ -166,9 +182,17 @@ def classify_echoes(
             if repeat is not None:
                 flags.append("repeat_echo")
                 notes.append(repeat)
-        if flags:
+        if flags or notes:
             found[int(ind.id)] = EchoFindings(tuple(flags), tuple(notes))
     return found
+
+
+def _corner_note(backwall_depth_mm: float, angle_deg: float) -> str:
+    return (
+        f"the echo lies at the wall depth ({backwall_depth_mm:g} mm) with an angle beam ({angle_deg:g} deg): the back "
+        "wall sends no echo back to an angle-beam probe, so this is a corner reflection at the far surface "
+        "(typically a surface-breaking crack there), not a geometry echo; evaluate it as a reflector"
+    )
 
 
 def _repeat_note(a: np.ndarray, depth: np.ndarray, d: float, peak: float, multiples: tuple[int, ...],

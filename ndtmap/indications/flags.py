@@ -50,9 +50,11 @@ Rules used here (each also stated in the function that applies it):
     map does not show this reflector, so a length or area there may be short
     (see :mod:`ndtmap.indications.depth_layers`).
 ``backwall_echo``
-    The depth is the nominal back-wall depth (set by
+    Straight beam only: the depth is the nominal back-wall depth within one
+    echo half-length (the pulse's depth resolution), set by
     :func:`ndtmap.indications.echoes.classify_echoes`, which also adds ``repeat_echo``
-    when the A-scan holds a stronger echo at 1/2 or 1/3 of the depth).
+    when the A-scan holds a stronger echo at 1/2 or 1/3 of the depth. With an
+    angle beam an echo at the wall depth is a corner reflection (a note, no flag).
 """
 
 from __future__ import annotations

@@ -24,7 +24,9 @@ never changed afterwards. Flags found (vocabulary in
     fraction of the wall): a geometry echo, not a reflector inside the wall.
     A reflector further above the back wall than that (3 mm above the back
     wall of a 100 mm part with a 5 MHz probe) is a separate echo and is not
-    flagged.
+    flagged. With a back-wall depth map (the back-wall gate's), the echo is
+    also the back wall where it lies at the back-wall depth measured at its
+    own position (a thinned wall reached by the flaw gate).
 
 With an angle beam (``beam_angle_deg`` > 0) the back wall sends no echo
 back to the probe: an echo at the wall depth comes from a corner between a
@@ -105,6 +107,7 @@ def classify_echoes(
     tolerance_mm: float = 1.0,
     tolerance_fraction: float = 0.03,
     min_depth_mm: float | None = None,
+    backwall_depth_map: xr.DataArray | None = None,
 ) -> dict[int, EchoFindings]:
     """Find repeat echoes and back-wall (geometry) echoes among indications, from the A-scans.
 
@@ -127,6 +130,9 @@ def classify_echoes(
     min_depth_mm : float, optional
         Shallowest depth searched for a primary (default: one echo length, to
         keep clear of the surface).
+    backwall_depth_map : xarray.DataArray (scan, index), optional
+        Depth of the back-wall echo at each position (the back-wall gate's
+        depth map), mm: an echo at the local back-wall depth is the back wall.
 
     Returns
     -------
@@ -165,13 +171,14 @@ def classify_echoes(
         flags: list[str] = []
         notes: list[str] = []
         d, peak = float(ind.depth_mm), float(ind.peak_fsh)
-        if backwall_depth_mm is not None and abs(d - backwall_depth_mm) <= half:
+        at_wall = _wall_depth_at(ind, d, half, backwall_depth_mm, backwall_depth_map)
+        if at_wall is not None:
             if angle_deg > 0:
-                notes.append(_corner_note(backwall_depth_mm, angle_deg))
+                notes.append(_corner_note(at_wall, angle_deg))
             else:
                 flags.append("backwall_echo")
                 notes.append(
-                    f"the echo lies at the back-wall depth ({backwall_depth_mm:g} mm, within one echo half-length "
+                    f"the echo lies at the back-wall depth ({at_wall:.4g} mm, within one echo half-length "
                     f"{half:.2f} mm): a geometry echo of the back wall reached by the gate, not a reflector inside "
                     "the wall"
                 )
@@ -185,6 +192,18 @@ def classify_echoes(
         if flags or notes:
             found[int(ind.id)] = EchoFindings(tuple(flags), tuple(notes))
     return found
+
+
+def _wall_depth_at(ind: Any, d: float, half: float, nominal_mm: float | None,
+                   depth_map: xr.DataArray | None) -> float | None:
+    """The back-wall depth (nominal, else measured at the indication's peak) that `d` matches within `half`."""
+    if nominal_mm is not None and abs(d - nominal_mm) <= half:
+        return float(nominal_mm)
+    if depth_map is not None:
+        local = float(depth_map.sel(scan=ind.scan_mm, index=ind.index_mm, method="nearest"))
+        if math.isfinite(local) and abs(d - local) <= half:
+            return local
+    return None
 
 
 def _corner_note(backwall_depth_mm: float, angle_deg: float) -> str:
@@ -228,6 +247,7 @@ class EchoCheck:
     tolerance_mm: float = 1.0
     tolerance_fraction: float = 0.03
     min_depth_mm: float | None = None
+    backwall_depth_map: xr.DataArray | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.grid, xr.Dataset):
@@ -240,5 +260,5 @@ class EchoCheck:
         return classify_echoes(
             self.grid, indications, backwall_depth_mm=self.backwall_depth_mm, multiples=self.multiples,
             tolerance_mm=self.tolerance_mm, tolerance_fraction=self.tolerance_fraction,
-            min_depth_mm=self.min_depth_mm,
+            min_depth_mm=self.min_depth_mm, backwall_depth_map=self.backwall_depth_map,
         )

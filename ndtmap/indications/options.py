@@ -42,11 +42,17 @@ class DetectionOptions:
         Regions with fewer probe positions are dropped.
     bridge_missing : bool, default False
         Missing positions join the regions they touch for labelling.
+    depth_step_mm : float, optional
+        Largest depth step between neighbouring positions of one reflector
+        (plan regions are split by depth); default from the pulse's depth
+        resolution and the map's depth noise, ``math.inf``: no split (see
+        :func:`ndtmap.indications.detection.detect_indications`).
     """
 
     min_area_mm2: float = 0.0
     min_positions: int = 1
     bridge_missing: bool = False
+    depth_step_mm: float | None = None
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "min_area_mm2", nonnegative_float("detection.min_area_mm2", self.min_area_mm2))

@@ -39,10 +39,11 @@ from ndtmap.indications.backwall import (
     merge_loss_into_flaws,
 )
 from ndtmap.indications.depth_layers import DepthLayer, map_layer, touching_indications
-from ndtmap.indications.detection import Indication, detect_backwall_loss, detect_indications
+from ndtmap.indications.detection import Indication, detect_backwall_loss, detect_indications, reference_map
 from ndtmap.indications.echoes import EchoCheck, EchoFindings
 from ndtmap.indications.equivalent_size import DgsInputs, dgs_equivalent_size
 from ndtmap.indications.flags import amplitude_flags, noise_level_fsh, ordered_flags, repeat_echo_notes
+from ndtmap.indications.hidden_echoes import depth_layers_from_ascans
 from ndtmap.indications.loss_sizing import size_loss_indication
 from ndtmap.indications.options import (
     DetectionOptions,
@@ -242,15 +243,22 @@ def size_indications(
         raise ParameterTypeError(f"`echoes` must be an EchoCheck or None, got {type(echoes).__name__}")
     rules_obj = _rules(rules)
 
+    level = _detection_level(amp, threshold_fsh, threshold_db, reference)
     inds = detect_indications(
-        amp, **_detection_level(amp, threshold_fsh, threshold_db, reference), depth_map=depth_map,
-        min_area_mm2=detection.min_area_mm2, min_positions=detection.min_positions,
-        bridge_missing=detection.bridge_missing,
+        amp, **level, depth_map=depth_map, min_area_mm2=detection.min_area_mm2,
+        min_positions=detection.min_positions, bridge_missing=detection.bridge_missing,
+        depth_step_mm=detection.depth_step_mm,
     )
+    layers: dict[int, DepthLayer] = {}
+    if echoes is not None and depth_map is not None:
+        new, layers = depth_layers_from_ascans(echoes.grid, amp, mg.as_map("depth_map", depth_map), inds, level,
+                                               level_fsh=_level_fsh(amp, level))
+        inds = inds + new
     bw = backwall_reference(amp, backwall, backwall_depth_mm, exclude=inds, attrs=attrs)
     loss_map, loss_inds, shadow = _backwall_loss_step(amp, inds, loss, bw, depth_map, detection)
     records = _amplitude_records(amp, inds, attrs=attrs, sizing=sizing, flag_options=flag_options, bw=bw,
-                                 dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes, shadow=shadow)
+                                 dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes, shadow=shadow,
+                                 layers=layers)
     records += [_loss_record(loss_map, ind, level_db=loss.threshold_db, edge=sizing.edge) for ind in loss_inds]
     if rules_obj is not None:
         records, _ = screen_records(records, rules_obj, scanned_area_mm2=scanned_area_mm2(amp))
@@ -269,10 +277,13 @@ def _amplitude_records(
     others: list[Indication],
     echoes: EchoCheck | None,
     shadow: Mapping[int, tuple[float | None, tuple[str, ...]]],
+    layers: Mapping[int, DepthLayer],
 ) -> list[IndicationRecord]:
     """The records of the amplitude indications: sizes, DGS, flags, map-wide notes, A-scan findings, back-wall loss.
 
-    `shadow` gives by id the back-wall loss under the indication (dB, None: unknown) and its notes.
+    `shadow` gives by id the back-wall loss under the indication (dB, None: unknown) and its notes;
+    `layers` the depth layers from the A-scans to size on (the others that border an indication at
+    another depth are sized on the gated map without the other's positions).
     """
     noise = noise_level_fsh(amp, inds)
     repeats = repeat_echo_notes(
@@ -280,7 +291,7 @@ def _amplitude_records(
         tolerance_fraction=flag_options.repeat_tolerance_fraction, others=others,
     )
     found = echoes.findings(inds) if echoes is not None else {}
-    layers = _depth_layers(amp, inds)
+    layers = {**_depth_layers(amp, inds), **layers}
     records = []
     for ind in inds:
         layer = layers.get(ind.id, DepthLayer(amp))
@@ -354,6 +365,13 @@ def _backwall_loss_step(
         db, note = under.get(i, (None, None))
         shadow[i] = (db, ((note,) if note else ()) + tuple(merged.get(i, ())))
     return loss_map, loss_inds, shadow
+
+
+def _level_fsh(amp: xr.DataArray, level: Mapping[str, Any]) -> np.ndarray:
+    """The detection level at every position, %FSH."""
+    if level.get("threshold_fsh") is not None:
+        return np.full(amp.shape, float(level["threshold_fsh"]))
+    return reference_map(level["reference"], amp) * 10.0 ** (float(level["threshold_db"]) / 20.0)
 
 
 def _depth_layers(amp: xr.DataArray, inds: list[Indication]) -> dict[int, DepthLayer]:

@@ -157,7 +157,8 @@ def _size(grid: xr.Dataset, proc: Procedure, det: Gate, maps: Mapping[str, xr.Da
         loss=loss,
         sizing=SizingOptions(edge=proc.edge),
         dgs=DgsOptions(transfer_correction_db=proc.transfer_correction_db),
-        echoes=EchoCheck(grid, backwall_depth_mm=_nominal_backwall_depth_mm(grid, maps.get("backwall_depth"))),
+        echoes=EchoCheck(grid, backwall_depth_mm=_nominal_backwall_depth_mm(grid, maps.get("backwall_depth")),
+                         backwall_depth_map=maps.get("backwall_depth")),
     )
 
 

@@ -119,3 +119,62 @@ def test_split_by_depth_keeps_cells_without_depth_with_their_neighbours():
     depth = np.full((4, 4), 12.0)
     depth[1, 1] = np.nan
     assert len(split_by_depth(region, depth, 1.0)) == 1
+
+
+# ---------------------------------------------------------------- with the A-scans (overlapping reflectors)
+T_US = np.arange(0.0, 12.0, 0.02)  # 50 MHz sampling, 0..35 mm of steel
+A_SCAN = np.arange(0.0, 60.0, 1.0)
+A_INDEX = np.arange(0.0, 30.0, 1.0)
+
+
+def _box(s, i, s0, s1, i0, i1):
+    return (s >= s0) & (s <= s1) & (i >= i0) & (i <= i1)
+
+
+def _overlap_grid():
+    """A lamination at 12 mm (scan 10-30, index 8-22, 80 %FSH) over part of one at 24 mm (scan 24-49, 60 %FSH,
+    40 %FSH where the shallower one shadows it) and, wholly under the first, a third at 19 mm (scan 14-22,
+    index 12-18, 40 %FSH); back wall at 30 mm. Echoes: scipy.signal.gausspulse at the geometric time 2 z / c."""
+    from ndtmap.grid import make_grid
+
+    s, i = np.meshgrid(A_SCAN, A_INDEX, indexing="ij")
+    a = _box(s, i, 10, 30, 8, 22)
+    b = _box(s, i, 24, 49, 8, 22)
+    c = _box(s, i, 14, 22, 12, 18)
+    echoes = [(12.0, np.where(a, 80.0, 0.0)), (24.0, np.where(b, np.where(a, 40.0, 60.0), 0.0)),
+              (19.0, np.where(c, 40.0, 0.0)), (30.0, np.where(a | b, 0.0, 80.0))]
+    data = np.zeros((A_SCAN.size, A_INDEX.size, T_US.size))
+    for z, amp in echoes:
+        t0 = 2.0 * z / 5.92  # pulse-echo time, us (geometry)
+        pulse = signal.gausspulse((T_US - t0) * 1e-6, fc=5e6, bw=0.6)
+        data += amp[..., None] * pulse
+    return make_grid(data.astype(np.float32), scan_mm=A_SCAN, index_mm=A_INDEX, time_us=T_US,
+                     velocity_m_s=5920.0, probe_frequency_mhz=5.0, probe_diameter_mm=10.0,
+                     attrs={"probe_bandwidth": 0.6, "part_thickness_mm": 30.0})
+
+
+def test_overlapping_reflectors_at_three_depths_from_the_a_scans():
+    from ndtmap.gates import Gate
+    from ndtmap.indications import EchoCheck
+    from ndtmap.scans import amplitude_map, depth_map
+
+    grid = _overlap_grid()
+    gate = Gate("flaw", 2.0, 27.0, threshold_fsh=20.0)
+    amp, dep = amplitude_map(grid, gate), depth_map(grid, gate)
+    maps_only = size_indications(amp, depth_map=dep)
+    assert [round(r.depth_mm) for r in maps_only] == [12, 24]  # the 19 mm reflector is not in the gated map
+    recs = size_indications(amp, depth_map=dep, echoes=EchoCheck(grid))
+    by_depth = {round(r.depth_mm): r for r in recs}
+    assert sorted(by_depth) == [12, 19, 24]
+    # truth (the geometry put in): 12 mm 21 x 15 mm; 24 mm 26 x 15 mm (6 mm of it under the first);
+    # 19 mm 9 x 7 mm; within max(2 mm, 10 %)
+    for z, (ls, li) in {12: (21.0, 15.0), 24: (26.0, 15.0), 19: (9.0, 7.0)}.items():
+        r = by_depth[z]
+        assert r.length_scan_mm == pytest.approx(ls, abs=max(2.0, 0.1 * ls)), z
+        assert r.length_index_mm == pytest.approx(li, abs=max(2.0, 0.1 * li)), z
+        assert "depth_neighbour" not in r.flags  # sized on its own depth layer from the A-scans
+    assert by_depth[19].peak_fsh == pytest.approx(40.0, rel=0.05)
+    assert any("found in the A-scans" in n for n in by_depth[19].notes)
+    # the map alone sizes the 24 mm lamination only where it is the stronger echo, and says so
+    short = {round(r.depth_mm): r for r in maps_only}[24]
+    assert short.length_scan_mm < 22.0 and "depth_neighbour" in short.flags

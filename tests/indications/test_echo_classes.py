@@ -72,3 +72,20 @@ def test_angle_beam_echo_at_the_wall_depth_is_a_corner_reflection():
     straight = _grid([(20.0, 70.0)], velocity_m_s=STEEL_L, thickness_mm=20.0, duration_us=15.0)
     (ind,) = _indications(straight, 10.0, 25.0)
     assert classify_echoes(straight, [ind])[ind.id].flags == ("backwall_echo",)
+
+
+def test_thinned_wall_is_the_back_wall_at_its_own_position():
+    # corrosion has thinned a 12 mm wall to 9 mm: the flaw gate's echo at 9 mm is the back wall there, as the
+    # back-wall gate's depth at the same position shows; against the nominal 12 mm alone it is not
+    import xarray as xr
+
+    grid = _grid([(9.0, 80.0)], velocity_m_s=STEEL_L, thickness_mm=12.0, duration_us=6.0)
+    (ind,) = _indications(grid, 1.0, 11.0)
+    assert classify_echoes(grid, [ind]).get(ind.id) is None
+    local = xr.DataArray(np.full((3, 3), 9.02), dims=("scan", "index"),
+                         coords={"scan": grid["scan"].values, "index": grid["index"].values})
+    found = classify_echoes(grid, [ind], backwall_depth_map=local)
+    assert found[ind.id].flags == ("backwall_echo",)
+    # a reflector at 9 mm over an intact 12 mm wall is not (the back-wall gate reads 12 mm there)
+    intact = local.copy(data=np.full((3, 3), 12.0))
+    assert classify_echoes(grid, [ind], backwall_depth_map=intact).get(ind.id) is None

@@ -183,11 +183,13 @@ def merge_loss_into_flaws(
 ) -> tuple[xr.DataArray, dict[int, list[str]]]:
     """The loss map without the loss regions that flaw echoes explain, and the notes for the flaws' records.
 
-    A back-wall-loss region that overlaps a flaw indication is that flaw's
-    shadow: its positions within the flaw regions grown by
-    :data:`MERGE_GROW` positions are set to 0 dB (so that they are not
-    detected again); the rest of it, if any, stays a back-wall-loss
-    indication (detected again on the returned map).
+    A back-wall-loss region that overlaps a flaw indication and lies within
+    the flaw regions grown by :data:`MERGE_GROW` positions is that flaw's
+    shadow: it is set to 0 dB on the returned map (so that it is not detected
+    again) and the flaw's record says so. A loss region that reaches further
+    than that is not merged: the loss extends beyond the flaw echo (a larger
+    or tilted reflector), so it stays a back-wall-loss indication with its
+    own size, and the flaw's record says that too.
 
     Returns
     -------
@@ -203,12 +205,15 @@ def merge_loss_into_flaws(
         under = [f.id for f in flaws if np.any(loss.region & f.region)]
         if not under:
             continue
-        explained = loss.region & np.logical_or.reduce([grown[fid] for fid in under])
-        values[explained] = 0.0
+        beyond = loss.region & ~np.logical_or.reduce([grown[fid] for fid in under])
         area = f", {loss.area_mm2:.0f} mm2" if loss.area_mm2 is not None else ""
         for fid in under:
             notes.setdefault(fid, []).append(
                 f"the back-wall-loss region under it ({loss.detection_level}, {loss.n_positions} positions{area}) "
-                "is its shadow: reported in this record, not as a separate back-wall-loss indication"
+                + ("reaches beyond its echo region: it is also reported as a back-wall-loss indication with its own "
+                   "size (the larger extent of this reflector may be that of the loss)" if beyond.any() else
+                   "is its shadow: reported in this record, not as a separate back-wall-loss indication")
             )
+        if not beyond.any():
+            values[loss.region] = 0.0
     return loss_map.copy(data=values), notes

@@ -71,7 +71,7 @@ def test_merge_false_reports_the_shadow_as_well():
 
 def test_loss_beyond_the_flaw_echo_stays_a_loss_indication():
     # the loss region runs 12 mm past the end of the echo region (e.g. a tilted part that sends no echo back):
-    # the part away from the flaw echo is still reported, the part under it is merged
+    # it is reported whole with its own size, so that the larger extent is not lost
     amp, bw = _scene()
     s, i = np.meshgrid(SCAN, INDEX, indexing="ij")
     values = bw.values.copy()
@@ -79,5 +79,18 @@ def test_loss_beyond_the_flaw_echo_stays_a_loss_indication():
     recs = size_indications(amp, threshold_fsh=20.0, backwall=_map(values), loss=LossOptions(6.0))
     kinds = [(r.kind, r.scan_min_mm, r.scan_max_mm) for r in recs]
     assert kinds[0] == ("amplitude", 10.0, 19.0)
-    # positions 22..31 along scan: beyond the echo region grown by the two positions of the merge rule
-    assert kinds[1:] == [("backwall_loss", 22.0, 31.0), ("backwall_loss", 30.0, 33.0)]
+    assert kinds[1:] == [("backwall_loss", 10.0, 31.0), ("backwall_loss", 30.0, 33.0)]
+    assert recs[1].length_scan_mm == pytest.approx(22.0, abs=1.0)  # 10..31 mm at the 6 dB level, by hand
+    assert any("reaches beyond its echo region" in n for n in recs[0].notes)
+
+
+def test_a_backwall_loss_limit_holds_for_the_loss_on_the_flaw_record():
+    from ndtmap.indications.rules import parse_rules
+
+    amp, bw = _scene()
+    rules = parse_rules('[[limit]]\nname = "back wall lost"\nquantity = "backwall_loss_db"\n'
+                        'kind = "backwall_loss"\nmax = 15')
+    recs = size_indications(amp, threshold_fsh=20.0, backwall=bw, loss=LossOptions(6.0), rules=rules)
+    # the lamination's shadow (18.1 dB) is in its record: the limit on back-wall loss still reaches it
+    assert recs[0].kind == "amplitude" and recs[0].screening == "exceeds rule back wall lost"
+    assert recs[1].screening == "within rules"  # 8.5 dB

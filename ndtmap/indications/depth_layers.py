@@ -48,6 +48,7 @@ __all__ = [
     "depth_noise_mm",
     "depth_step_tolerance_mm",
     "split_by_depth",
+    "merge_repeat_fragments",
     "touching_indications",
     "map_layer",
 ]
@@ -233,6 +234,67 @@ def split_by_depth(region: np.ndarray, depth: np.ndarray, tol_mm: float) -> list
         parts.append(part.reshape(mask.shape))
     parts.sort(key=lambda m: -int(m.sum()))
     return parts
+
+
+def _median_depth(part: np.ndarray, depth: np.ndarray) -> float:
+    d = depth[part]
+    d = d[np.isfinite(d)]
+    return float(np.median(d)) if d.size else math.nan
+
+
+def merge_repeat_fragments(parts: list[np.ndarray], depth: np.ndarray, values: np.ndarray, tol_mm: float
+                           ) -> tuple[list[np.ndarray], np.ndarray]:
+    """Give back to its reflector a part that is its repeat echo: at 2 or 3 times its depth and inside it.
+
+    A repeat echo (reflector - front surface - reflector) lies where its
+    primary is, so a part of a split region whose median depth is within
+    `tol_mm` of 2 or 3 times that of a neighbouring part with a higher
+    peak, that touches it, is smaller and lies within its plan extent (its
+    bounding box of positions), is the gate picking the primary's repeat at
+    a few positions (e.g. the corner of a lamination): it is merged into the
+    primary's part. A reflector beside another at twice its depth is not
+    inside it and stays.
+
+    Returns
+    -------
+    (parts, repeat_cells)
+        The parts after merging and the positions merged as repeats (their
+        depths are not the reflector's).
+    """
+    repeat = np.zeros(depth.shape, dtype=bool)
+    if len(parts) < 2:
+        return parts, repeat
+    depths = [_median_depth(p, depth) for p in parts]
+    peaks = [float(np.nanmax(np.where(p, values, np.nan))) for p in parts]
+    merged_into = list(range(len(parts)))
+    sizes = [int(np.count_nonzero(p)) for p in parts]
+    for k, part in enumerate(parts):
+        grown = ndimage.binary_dilation(part, structure=mg.STRUCTURE_8)
+        rows, cols = np.nonzero(part)
+        for m, other in enumerate(parts):
+            if m == k or not (peaks[m] >= peaks[k]) or not math.isfinite(depths[m]) or sizes[k] >= sizes[m]:
+                continue
+            if min(abs(depths[k] - j * depths[m]) for j in (2, 3)) > tol_mm or not np.any(grown & other):
+                continue
+            r_o, c_o = np.nonzero(other)
+            if r_o.min() <= rows.min() and rows.max() <= r_o.max() and c_o.min() <= cols.min() and \
+                    cols.max() <= c_o.max():
+                merged_into[k] = m
+                break
+    for k in range(len(parts)):  # a chain ends at a part that is not merged (sizes grow along it: no cycle)
+        while merged_into[merged_into[k]] != merged_into[k]:
+            merged_into[k] = merged_into[merged_into[k]]
+    out = []
+    for m, part in enumerate(parts):
+        if merged_into[m] != m:
+            continue
+        whole = part.copy()
+        for k in range(len(parts)):
+            if merged_into[k] == m and k != m:
+                whole |= parts[k]
+                repeat |= parts[k]
+        out.append(whole)
+    return out, repeat
 
 
 @dataclass(frozen=True, eq=False)

@@ -48,7 +48,7 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_int
 from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import jsonable
-from ndtmap.indications.depth_layers import depth_step_tolerance_mm, split_by_depth
+from ndtmap.indications.depth_layers import depth_step_tolerance_mm, merge_repeat_fragments, split_by_depth
 
 __all__ = [
     "Indication",
@@ -244,21 +244,28 @@ def reference_from_curve(depth_map: xr.DataArray, curve_depth_mm: Any, curve_fsh
 
 def _regions(
     above: np.ndarray, missing: np.ndarray, *, bridge_missing: bool, depth: np.ndarray | None = None,
-    depth_step_mm: float | None = None,
-) -> list[np.ndarray]:
-    """Boolean masks of the 8-connected regions of `above`, each split by depth when a depth step is given."""
+    depth_step_mm: float | None = None, values: np.ndarray | None = None,
+) -> tuple[list[np.ndarray], np.ndarray]:
+    """Boolean masks of the 8-connected regions of `above`, each split by depth when a depth step is given.
+
+    Also the positions whose depth is a repeat echo of their region's reflector (not used for its depth range).
+    """
     to_label = above | missing if bridge_missing else above
     labels, n = ndimage.label(to_label, structure=mg.STRUCTURE_8)
     out = []
+    repeat = np.zeros(above.shape, dtype=bool)
     for lab in range(1, n + 1):
         region = (labels == lab) & above
         if not region.any():
             continue
-        if depth is None or depth_step_mm is None or np.count_nonzero(region) < 2:
+        if depth is None or depth_step_mm is None or values is None or np.count_nonzero(region) < 2:
             out.append(region)
         else:
-            out.extend(split_by_depth(region, depth, depth_step_mm))
-    return out
+            parts, rep = merge_repeat_fragments(split_by_depth(region, depth, depth_step_mm), depth, values,
+                                                depth_step_mm)
+            out.extend(parts)
+            repeat |= rep
+    return out, repeat
 
 
 def _build(
@@ -281,7 +288,11 @@ def _build(
     areas = mg.cell_areas(value_map)
     missing = np.isnan(values)
     found = []
-    for region in _regions(above, missing, bridge_missing=bridge_missing, depth=depth, depth_step_mm=depth_step_mm):
+    regions, repeat = _regions(above, missing, bridge_missing=bridge_missing, depth=depth,
+                               depth_step_mm=depth_step_mm, values=values)
+    if repeat.any():  # depths of repeat echoes are not the reflector's
+        depth = np.where(repeat, np.nan, depth)
+    for region in regions:
         n = int(np.count_nonzero(region))
         area = float(np.sum(areas[region])) if np.all(np.isfinite(areas[region])) else None
         if n < min_positions:

@@ -222,7 +222,8 @@ def depth_layers_from_ascans(
     near = touching_indications([*amp_inds, *new])
     for ind in [*amp_inds, *new]:
         if ind.id in near or ind.id in extended or ind in new:
-            layers[ind.id] = _ascan_layer(grid, amplitude_map, ind, res, hidden=ind.id in extended, new=ind in new)
+            layers[ind.id] = _ascan_layer(grid, amplitude_map, depth_map, ind, res, hidden=ind.id in extended,
+                                          new=ind in new)
     return new, layers
 
 
@@ -237,12 +238,24 @@ def _layer_indication(grid: xr.Dataset, amplitude_map: xr.DataArray, group: Mapp
             for k, ind in enumerate(hit)]
 
 
-def _ascan_layer(grid: xr.Dataset, amplitude_map: xr.DataArray, ind: Indication, res: float, *,
-                 hidden: bool, new: bool) -> DepthLayer:
-    """The depth layer of `ind` from the A-scans, with its note."""
+def _ascan_layer(grid: xr.Dataset, amplitude_map: xr.DataArray, depth_map: xr.DataArray, ind: Indication,
+                 res: float, *, hidden: bool, new: bool) -> DepthLayer:
+    """The depth layer of `ind` from the A-scans, with its note.
+
+    Where the layer's echo is at 2 or 3 times the depth of the gated map's echo and not stronger, it is
+    that echo's repeat, not this reflector: the layer reads 0 there.
+    """
     lo = (ind.depth_min_mm if ind.depth_min_mm is not None else ind.depth_mm) - res / 2
     hi = (ind.depth_max_mm if ind.depth_max_mm is not None else ind.depth_mm) + res / 2
-    lam, _ = layer_map(grid, amplitude_map, lo, hi)
+    lam, dep = layer_map(grid, amplitude_map, lo, hi)
+    d0 = np.asarray(depth_map.values, dtype=np.float64)
+    a0 = np.asarray(amplitude_map.values, dtype=np.float64)
+    z, a = dep.values, lam.values
+    with np.errstate(invalid="ignore"):
+        repeat = (np.abs(z - d0) > res) & (a0 >= a) & np.logical_or.reduce(
+            [np.abs(z - k * d0) <= res for k in (2, 3)])
+    if repeat.any():
+        lam = lam.copy(data=np.where(repeat, 0.0, a))
     if new:
         why = ("found in the A-scans: a stronger echo at another depth hides it in the gated map; a separate "
                "reflector at this depth")

@@ -320,11 +320,15 @@ def touching_indications(indications: Sequence[Any]) -> dict[int, list[Any]]:
     depth (:func:`split_by_depth`): reflectors at different depths.
     """
     amp = [ind for ind in indications if ind.kind == "amplitude"]
-    grown = {ind.id: ndimage.binary_dilation(ind.region, structure=mg.STRUCTURE_8) for ind in amp}
     out: dict[int, list[Any]] = {}
     for ind in amp:
+        rows, cols = np.nonzero(ind.region)
+        if not rows.size:
+            continue
+        box = (slice(max(rows.min() - 1, 0), rows.max() + 2), slice(max(cols.min() - 1, 0), cols.max() + 2))
+        grown = ndimage.binary_dilation(ind.region[box], structure=mg.STRUCTURE_8)  # within its bounding box
         near = [o for o in amp if o is not ind and o.region.shape == ind.region.shape and
-                bool(np.any(grown[ind.id] & o.region))]
+                bool(np.any(grown & o.region[box]))]
         if near:
             out[ind.id] = near
     return out

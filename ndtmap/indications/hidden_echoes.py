@@ -78,10 +78,10 @@ def layer_map(grid: xr.Dataset, amplitude_map: xr.DataArray, lo_mm: float, hi_mm
         sel = np.array([int(np.argmin(np.abs(depth - 0.5 * (lo_mm + hi_mm))))])
     window = np.abs(ascan_in_fsh(grid).isel(time=slice(int(sel[0]), int(sel[-1]) + 1)))
     window = window.transpose("scan", "index", "time")
-    values = np.asarray(window.values, dtype=np.float64)
-    valid = np.isfinite(values).all(axis=-1)
-    amp = np.where(valid, np.nanmax(np.where(np.isfinite(values), values, -np.inf), axis=-1), np.nan)
-    at = np.argmax(np.where(np.isfinite(values), values, -np.inf), axis=-1)
+    valid = np.asarray(window.notnull().all("time").values)  # reductions: dask-backed grids stay lazy until here
+    filled = window.fillna(-np.inf)
+    amp = np.where(valid, np.asarray(filled.max("time").values, dtype=np.float64), np.nan)
+    at = np.asarray(filled.argmax("time").values)
     dep = np.where(valid, depth[sel[0] + at], np.nan)
     attrs = {k: v for k, v in amplitude_map.attrs.items() if k != "gate"}
     return amplitude_map.copy(data=amp).assign_attrs(attrs), amplitude_map.copy(data=dep).assign_attrs(
@@ -109,7 +109,8 @@ def hidden_echo_groups(
         return []
     sig = ascan_in_fsh(grid).transpose("scan", "index", "time").isel(time=slice(int(sel[0]), int(sel[-1]) + 1))
     rows, cols = np.nonzero(cells)
-    a = np.asarray(sig.values[rows, cols], dtype=np.float64)  # (n cells, n samples)
+    a = np.asarray(sig.isel(scan=xr.DataArray(rows, dims="cell"), index=xr.DataArray(cols, dims="cell")).values,
+                   dtype=np.float64)  # (n cells, n samples): only the A-scans of the detected regions
     env = np.abs(sps.hilbert(a, axis=-1)) if np.nanmin(a) < 0 else a
     z = depth[sel]
     dz = float(np.median(np.diff(z))) if z.size > 1 else 1.0

@@ -183,7 +183,10 @@ def size_indications(
         Without `threshold_fsh` and `threshold_db`, the level of the gate
         that made the map (:func:`map_detection_level`).
     depth_map : xarray.DataArray, optional
-        Depth of the same gate, mm (for depths, beam widths, DGS, repeats).
+        Depth of the same gate, mm (for depths, beam widths, DGS, repeats),
+        and to split plan regions by depth: reflectors at different depths
+        are different indications, each sized on its own depth
+        (:mod:`ndtmap.indications.depth_layers`).
     backwall : float or xarray.DataArray, optional
         Back-wall reference: a level in %FSH, or a back-wall amplitude map
         whose nominal level over the sound area (outside indications) is
@@ -194,7 +197,11 @@ def size_indications(
     detection : DetectionOptions, optional
         Smallest region kept, bridging of missing positions.
     loss : LossOptions, optional
-        Also detect back-wall-loss indications (level in dB, loss map).
+        Also detect back-wall-loss indications (level in dB, loss map). A
+        loss region under a flaw echo goes into the flaw's record; with a
+        back-wall amplitude map (or a loss map) every amplitude record
+        carries ``backwall_loss_db``, the largest loss under it
+        (:mod:`ndtmap.indications.backwall`).
     sizing : SizingOptions, optional
         Walking rule of the lengths, measured beam profiles.
     dgs : DgsOptions, optional
@@ -206,7 +213,10 @@ def size_indications(
         gate), checked as possible primaries of repeat echoes.
     echoes : EchoCheck, optional
         Look at the A-scans of this grid for repeat and back-wall echoes
-        (:func:`ndtmap.indications.echoes.classify_echoes`).
+        (:func:`ndtmap.indications.echoes.classify_echoes`), and for echoes
+        at other depths that the gated map hides
+        (:mod:`ndtmap.indications.hidden_echoes`: new indications numbered
+        after the others, depth layers to size on).
     rules : Rules or path, optional
         Screening rules (:func:`ndtmap.indications.screening.screen_records`):
         each record then has ``screening`` and ``exceeded_rules``.

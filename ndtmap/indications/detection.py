@@ -11,7 +11,13 @@ reaches a detection level. Two kinds are detected the same way:
   shadow the back wall).
 
 Regions are 8-connected (:func:`scipy.ndimage.label` with a 3x3 structure):
-positions that touch by a corner belong to the same indication. Missing
+positions that touch by a corner belong to the same indication. With a
+depth map, a region is then split by depth: reflectors at different depths
+are different indications even where their plan regions touch
+(:func:`ndtmap.indications.depth_layers.split_by_depth`: neighbours are one
+reflector when their depths agree within the pulse's depth resolution and
+the map's depth noise, or when the step continues the slope of an inclined
+reflector). Missing
 positions (NaN, encoder drop-outs) are never part of a region; by default
 a region split by missing data is reported as two indications, each
 carrying the number of missing positions next to it (see
@@ -42,6 +48,7 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.validate import finite_float, nonnegative_float, one_of, positive_int
 from ndtmap.errors import CalibrationError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import jsonable
+from ndtmap.indications.depth_layers import depth_step_tolerance_mm, merge_repeat_fragments, split_by_depth
 from ndtmap.signal import DacCurve
 
 __all__ = [
@@ -262,17 +269,29 @@ def _reference_from_dac(dm: xr.DataArray, depth_map: xr.DataArray, curve: DacCur
 
 
 def _regions(
-    above: np.ndarray, missing: np.ndarray, *, bridge_missing: bool
-) -> list[np.ndarray]:
-    """Boolean masks of the 8-connected regions of `above`."""
+    above: np.ndarray, missing: np.ndarray, *, bridge_missing: bool, depth: np.ndarray | None = None,
+    depth_step_mm: float | None = None, values: np.ndarray | None = None,
+) -> tuple[list[np.ndarray], np.ndarray]:
+    """Boolean masks of the 8-connected regions of `above`, each split by depth when a depth step is given.
+
+    Also the positions whose depth is a repeat echo of their region's reflector (not used for its depth range).
+    """
     to_label = above | missing if bridge_missing else above
     labels, n = ndimage.label(to_label, structure=mg.STRUCTURE_8)
     out = []
+    repeat = np.zeros(above.shape, dtype=bool)
     for lab in range(1, n + 1):
         region = (labels == lab) & above
-        if region.any():
+        if not region.any():
+            continue
+        if depth is None or depth_step_mm is None or values is None or np.count_nonzero(region) < 2:
             out.append(region)
-    return out
+        else:
+            parts, rep = merge_repeat_fragments(split_by_depth(region, depth, depth_step_mm), depth, values,
+                                                depth_step_mm)
+            out.extend(parts)
+            repeat |= rep
+    return out, repeat
 
 
 def _build(
@@ -290,12 +309,17 @@ def _build(
     order: str,
     first_id: int,
     rank: np.ndarray | None = None,
+    depth_step_mm: float | None = None,
 ) -> list[Indication]:
     scan, index = mg.coords_mm(value_map)
     areas = mg.cell_areas(value_map)
     missing = np.isnan(values)
     found = []
-    for region in _regions(above, missing, bridge_missing=bridge_missing):
+    regions, repeat = _regions(above, missing, bridge_missing=bridge_missing, depth=depth,
+                               depth_step_mm=depth_step_mm, values=values)
+    if repeat.any():  # depths of repeat echoes are not the reflector's
+        depth = np.where(repeat, np.nan, depth)
+    for region in regions:
         n = int(np.count_nonzero(region))
         area = float(np.sum(areas[region])) if np.all(np.isfinite(areas[region])) else None
         if n < min_positions:
@@ -382,6 +406,7 @@ def detect_indications(
     bridge_missing: bool = False,
     order: str = "peak",
     first_id: int = 1,
+    depth_step_mm: float | None = None,
 ) -> list[Indication]:
     """Find the indications of an amplitude map.
 
@@ -404,7 +429,8 @@ def detect_indications(
         peak in dB re reference.
     depth_map : xarray.DataArray (scan, index), optional
         Depth of the gate event, mm, for the depth at the peak and the depth
-        range.
+        range, and to split plan regions by depth (reflectors at different
+        depths are different indications).
     min_area_mm2 : float, default 0
         Regions with a smaller detected area are dropped.
     min_positions : int, default 1
@@ -418,6 +444,14 @@ def detect_indications(
         index position of the peak.
     first_id : int, default 1
         Number of the first indication.
+    depth_step_mm : float, optional
+        Largest depth step between neighbouring positions of one reflector,
+        mm (with `depth_map`). Default: the pulse's depth resolution from the
+        map's attributes (``probe_frequency_mhz``, ``probe_bandwidth``,
+        ``velocity_m_s``, ``beam_angle_deg``) plus 3 x the depth noise of the
+        map (:func:`ndtmap.indications.depth_layers.depth_step_tolerance_mm`);
+        without those attributes regions are not split. ``math.inf``: never
+        split by depth.
 
     Returns
     -------
@@ -462,10 +496,12 @@ def detect_indications(
             text = f">= {db:+g} dB re reference"
             rank = values / ref  # the peak of a level in dB is the highest amplitude re the reference
     depth = None
+    step = None
     if depth_map is not None:
         dm = mg.as_map("depth_map", depth_map)
         mg.check_same_grid("depth_map", dm, "amplitude_map", amp)
         depth = dm.values
+        step = _depth_step(depth_step_mm, amplitude_map.attrs, depth, above)
     return _build(
         "amplitude",
         amp,
@@ -480,7 +516,17 @@ def detect_indications(
         order=order,
         first_id=first,
         rank=rank,
+        depth_step_mm=step,
     )
+
+
+def _depth_step(depth_step_mm: Any, attrs: Any, depth: np.ndarray, above: np.ndarray) -> float | None:
+    """The depth step of the split by depth (None: no split)."""
+    if depth_step_mm is None:
+        return depth_step_tolerance_mm(attrs, depth, above)
+    if isinstance(depth_step_mm, float | int) and depth_step_mm == math.inf:
+        return None
+    return nonnegative_float("depth_step_mm", depth_step_mm)
 
 
 def detect_backwall_loss(

@@ -18,12 +18,26 @@ never changed afterwards. Flags found (vocabulary in
     At the indication's peak position the A-scan holds an echo at least as
     strong at 1/k of its depth (k = 2, 3), within the depth tolerance.
 ``backwall_echo``
-    The depth equals the nominal back-wall depth within the tolerance: a
-    geometry echo, not a reflector inside the wall.
+    Straight beam: the depth equals the nominal back-wall depth within one
+    echo half-length (:func:`echo_half_length_mm`, the pulse's depth
+    resolution from its centre frequency, bandwidth and the velocity; not a
+    fraction of the wall): a geometry echo, not a reflector inside the wall.
+    A reflector further above the back wall than that (3 mm above the back
+    wall of a 100 mm part with a 5 MHz probe) is a separate echo and is not
+    flagged. With a back-wall depth map (the back-wall gate's), the echo is
+    also the back wall where it lies at the back-wall depth measured at its
+    own position (a thinned wall reached by the flaw gate).
 
-The tolerance is ``max(tolerance_mm, tolerance_fraction * depth)`` plus one
-echo half-length (the time extent of the pulse, from the probe's frequency and
-bandwidth), so that the diffraction phase of each echo does not matter.
+With an angle beam (``beam_angle_deg`` > 0) the back wall sends no echo
+back to the probe: an echo at the wall depth comes from a corner between a
+reflector and the far surface (a corner reflection, typically a
+surface-breaking crack at the far surface). It is not flagged
+``backwall_echo``; a note says so, and the indication is evaluated as a
+reflector.
+
+The tolerance of the repeat check is ``max(tolerance_mm, tolerance_fraction * depth)``
+plus one echo half-length, so that the diffraction phase of each echo does
+not matter.
 """
 
 from __future__ import annotations
@@ -93,6 +107,7 @@ def classify_echoes(
     tolerance_mm: float = 1.0,
     tolerance_fraction: float = 0.03,
     min_depth_mm: float | None = None,
+    backwall_depth_map: xr.DataArray | None = None,
 ) -> dict[int, EchoFindings]:
     """Find repeat echoes and back-wall (geometry) echoes among indications, from the A-scans.
 
@@ -110,10 +125,14 @@ def classify_echoes(
     multiples : tuple of int, default (2, 3)
         Repeat orders looked for.
     tolerance_mm, tolerance_fraction : float
-        Depth tolerance, see the module docstring.
+        Depth tolerance of the repeat check, see the module docstring (the
+        back-wall check uses one echo half-length).
     min_depth_mm : float, optional
         Shallowest depth searched for a primary (default: one echo length, to
         keep clear of the surface).
+    backwall_depth_map : xarray.DataArray (scan, index), optional
+        Depth of the back-wall echo at each position (the back-wall gate's
+        depth map), mm: an echo at the local back-wall depth is the back wall.
 
     Returns
     -------
@@ -142,6 +161,7 @@ def classify_echoes(
     pc = part_constants(grid)
     depth = pc.depth_mm(pc.time_us)
     half = echo_half_length_mm(grid)
+    angle_deg = pc.beam_angle_deg
     floor = half * 2.0 if min_depth_mm is None else float(min_depth_mm)
     signal = ascan_in_fsh(grid)
     found: dict[int, EchoFindings] = {}
@@ -151,13 +171,16 @@ def classify_echoes(
         flags: list[str] = []
         notes: list[str] = []
         d, peak = float(ind.depth_mm), float(ind.peak_fsh)
-        if backwall_depth_mm is not None:
-            tol = max(tolerance_mm, tolerance_fraction * backwall_depth_mm) + half
-            if abs(d - backwall_depth_mm) <= tol:
+        at_wall = _wall_depth_at(ind, d, half, backwall_depth_mm, backwall_depth_map)
+        if at_wall is not None:
+            if angle_deg > 0:
+                notes.append(_corner_note(at_wall, angle_deg))
+            else:
                 flags.append("backwall_echo")
                 notes.append(
-                    f"the echo lies at the back-wall depth ({backwall_depth_mm:g} mm): a geometry echo of the "
-                    "back wall reached by the gate, not a reflector inside the wall"
+                    f"the echo lies at the back-wall depth ({at_wall:.4g} mm, within one echo half-length "
+                    f"{half:.2f} mm): a geometry echo of the back wall reached by the gate, not a reflector inside "
+                    "the wall"
                 )
         a = np.abs(np.asarray(signal.sel(scan=ind.scan_mm, index=ind.index_mm, method="nearest").values,
                               dtype=np.float64))
@@ -166,9 +189,29 @@ def classify_echoes(
             if repeat is not None:
                 flags.append("repeat_echo")
                 notes.append(repeat)
-        if flags:
+        if flags or notes:
             found[int(ind.id)] = EchoFindings(tuple(flags), tuple(notes))
     return found
+
+
+def _wall_depth_at(ind: Any, d: float, half: float, nominal_mm: float | None,
+                   depth_map: xr.DataArray | None) -> float | None:
+    """The back-wall depth (nominal, else measured at the indication's peak) that `d` matches within `half`."""
+    if nominal_mm is not None and abs(d - nominal_mm) <= half:
+        return float(nominal_mm)
+    if depth_map is not None:
+        local = float(depth_map.sel(scan=ind.scan_mm, index=ind.index_mm, method="nearest"))
+        if math.isfinite(local) and abs(d - local) <= half:
+            return local
+    return None
+
+
+def _corner_note(backwall_depth_mm: float, angle_deg: float) -> str:
+    return (
+        f"the echo lies at the wall depth ({backwall_depth_mm:g} mm) with an angle beam ({angle_deg:g} deg): the back "
+        "wall sends no echo back to an angle-beam probe, so this is a corner reflection at the far surface "
+        "(typically a surface-breaking crack there), not a geometry echo; evaluate it as a reflector"
+    )
 
 
 def _repeat_note(a: np.ndarray, depth: np.ndarray, d: float, peak: float, multiples: tuple[int, ...],
@@ -204,6 +247,7 @@ class EchoCheck:
     tolerance_mm: float = 1.0
     tolerance_fraction: float = 0.03
     min_depth_mm: float | None = None
+    backwall_depth_map: xr.DataArray | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.grid, xr.Dataset):
@@ -216,5 +260,5 @@ class EchoCheck:
         return classify_echoes(
             self.grid, indications, backwall_depth_mm=self.backwall_depth_mm, multiples=self.multiples,
             tolerance_mm=self.tolerance_mm, tolerance_fraction=self.tolerance_fraction,
-            min_depth_mm=self.min_depth_mm,
+            min_depth_mm=self.min_depth_mm, backwall_depth_map=self.backwall_depth_map,
         )

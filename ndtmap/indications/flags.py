@@ -27,8 +27,10 @@ Rules used here (each also stated in the function that applies it):
 ``repeat_echo``
     The depth is within ``max(tolerance_mm, tolerance_fraction * depth)``
     (default ``max(2 mm, 3 %)``) of k times the depth of a stronger indication
-    whose extent overlaps (k = 2, 3), or of k times the back-wall depth (a
-    back-wall multiple, k = 2, 3).
+    that covers its peak position (k = 2, 3), or of k times the back-wall
+    depth (a back-wall multiple, k = 2, 3). A repeat echo lies under its
+    primary: an indication beside a stronger one (plan regions that only
+    touch, as reflectors at different depths do) is not its repeat.
 ``near_field``
     The sound path is shorter than 3 near-field lengths, where the far-field
     relations do not hold, and a size rests on the beam there: a 6 dB length
@@ -46,10 +48,17 @@ Rules used here (each also stated in the function that applies it):
 ``beam_limited_20db``
     The 20 dB drop length is not larger than the -20 dB beam width: the
     beam-corrected 20 dB size is not given.
+``depth_neighbour``
+    The plan region borders an indication at another depth and the sizes
+    come from the gated map alone: where the other echo is the stronger the
+    map does not show this reflector, so a length or area there may be short
+    (see :mod:`ndtmap.indications.depth_layers`).
 ``backwall_echo``
-    The depth is the nominal back-wall depth (set by
+    Straight beam only: the depth is the nominal back-wall depth within one
+    echo half-length (the pulse's depth resolution), set by
     :func:`ndtmap.indications.echoes.classify_echoes`, which also adds ``repeat_echo``
-    when the A-scan holds a stronger echo at 1/2 or 1/3 of the depth).
+    when the A-scan holds a stronger echo at 1/2 or 1/3 of the depth. With an
+    angle beam an echo at the wall depth is a corner reflection (a note, no flag).
 """
 
 from __future__ import annotations
@@ -102,6 +111,8 @@ FLAG_MEANINGS: dict[str, str] = {
     "beam_limited_20db": "20 dB drop length not larger than the -20 dB beam width: no beam-corrected 20 dB size",
     "backwall_echo": "the echo lies at the nominal back-wall depth: a geometry echo of the back wall reached by "
     "the gate, not a reflector inside the wall",
+    "depth_neighbour": "the plan region borders an indication at another depth and was sized on the gated map "
+    "alone: where the other echo is the stronger this reflector is not seen, a length or area there may be short",
 }
 
 #: The flag names, in report order.
@@ -336,6 +347,16 @@ def _overlap(a: Indication, b: Indication) -> bool:
     )
 
 
+def _under(ind: Indication, primary: Indication) -> bool:
+    """`ind` can be a repeat of `primary`: the primary covers its peak position (its extent, without regions)."""
+    region = getattr(primary, "region", None)
+    if isinstance(region, np.ndarray) and region.ndim == 2 and region.shape == getattr(ind.region, "shape", None):
+        i, j = ind.peak_position
+        if region.any() and 0 <= i < region.shape[0] and 0 <= j < region.shape[1]:
+            return bool(region[i, j])
+    return _overlap(ind, primary)
+
+
 def _strength(ind: Indication) -> float:
     return ind.peak_fsh if ind.peak_fsh is not None else -math.inf
 
@@ -355,8 +376,10 @@ def repeat_echo_notes(
     within ``max(tolerance_mm, tolerance_fraction * depth)`` of k times
 
     * the depth of a stronger amplitude indication (higher peak %FSH) whose
-      extent rectangle (scan_min..scan_max x index_min..index_max) overlaps
-      its own, or
+      region covers its peak position (a repeat echo lies under its primary;
+      a neighbour beside it in plan is not its primary), or, for records
+      without regions on the same map, whose extent rectangle overlaps its
+      own, or
     * the back-wall depth (a back-wall multiple),
 
     for k in `multiples`.
@@ -403,7 +426,7 @@ def repeat_echo_notes(
         for other in pool:
             if other is ind or other.kind != "amplitude" or other.depth_mm is None or other.depth_mm <= 0:
                 continue
-            if not (_strength(other) > _strength(ind)) or not _overlap(ind, other):
+            if not (_strength(other) > _strength(ind)) or not _under(ind, other):
                 continue
             for k in multiples:
                 if abs(z - k * other.depth_mm) <= tol:

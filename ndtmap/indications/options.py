@@ -42,11 +42,17 @@ class DetectionOptions:
         Regions with fewer probe positions are dropped.
     bridge_missing : bool, default False
         Missing positions join the regions they touch for labelling.
+    depth_step_mm : float, optional
+        Largest depth step between neighbouring positions of one reflector
+        (plan regions are split by depth); default from the pulse's depth
+        resolution and the map's depth noise, ``math.inf``: no split (see
+        :func:`ndtmap.indications.detection.detect_indications`).
     """
 
     min_area_mm2: float = 0.0
     min_positions: int = 1
     bridge_missing: bool = False
+    depth_step_mm: float | None = None
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "min_area_mm2", nonnegative_float("detection.min_area_mm2", self.min_area_mm2))
@@ -60,21 +66,32 @@ class LossOptions:
 
     Parameters
     ----------
-    threshold_db : float
-        Detection level, dB of back-wall loss (> 0).
+    threshold_db : float or None
+        Detection level, dB of back-wall loss (> 0). None: no back-wall-loss
+        indications; the loss map then only gives the ``backwall_loss_db``
+        of the flaw records.
     loss_map : xarray.DataArray, optional
         Back-wall loss, dB, on the amplitude map's positions (as from
         :func:`ndtmap.scans.backwall_loss_map`). Default: computed from the
         back-wall amplitude map given as `backwall` with
         :func:`ndtmap.scans.backwall_loss_db` against its median over the
         sound area.
+    merge : bool, default True
+        One reflector, one record: a loss region under a flaw echo is that
+        flaw's shadow and goes into the flaw's record (``backwall_loss_db``
+        and a note), not into a record of its own; only the loss positions
+        away from flaw echoes are back-wall-loss indications. False reports
+        every loss region on its own, as before.
     """
 
-    threshold_db: float
+    threshold_db: float | None
     loss_map: xr.DataArray | None = None
+    merge: bool = True
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "threshold_db", positive_float("loss.threshold_db", self.threshold_db))
+        if self.threshold_db is not None:
+            object.__setattr__(self, "threshold_db", positive_float("loss.threshold_db", self.threshold_db))
+        object.__setattr__(self, "merge", bool(self.merge))
         if self.loss_map is not None and not isinstance(self.loss_map, xr.DataArray):
             raise ParameterTypeError(
                 f"`loss.loss_map` must be an xarray.DataArray of dB or None, got {type(self.loss_map).__name__}"

@@ -31,11 +31,19 @@ from ndtmap._shared import mapgeom as mg
 from ndtmap.errors import NdtmapError, ParameterError, ParameterTypeError
 from ndtmap.gates import Gate
 from ndtmap.indications.amplitude_sizing import finite_or_none, size_amplitude_indication
-from ndtmap.indications.backwall import BackwallReference, backwall_reference, loss_map_db
-from ndtmap.indications.detection import Indication, detect_backwall_loss, detect_indications
+from ndtmap.indications.backwall import (
+    BackwallReference,
+    backwall_reference,
+    loss_map_db,
+    loss_under_flaws,
+    merge_loss_into_flaws,
+)
+from ndtmap.indications.depth_layers import DepthLayer, map_layer, touching_indications
+from ndtmap.indications.detection import Indication, detect_backwall_loss, detect_indications, reference_map
 from ndtmap.indications.echoes import EchoCheck, EchoFindings
 from ndtmap.indications.equivalent_size import DgsInputs, dgs_equivalent_size
 from ndtmap.indications.flags import amplitude_flags, noise_level_fsh, ordered_flags, repeat_echo_notes
+from ndtmap.indications.hidden_echoes import depth_layers_from_ascans
 from ndtmap.indications.loss_sizing import size_loss_indication
 from ndtmap.indications.options import (
     DetectionOptions,
@@ -186,7 +194,10 @@ def size_indications(
         Without `threshold_fsh` and `threshold_db`, the level of the gate
         that made the map (:func:`map_detection_level`).
     depth_map : xarray.DataArray, optional
-        Depth of the same gate, mm (for depths, beam widths, DGS, repeats).
+        Depth of the same gate, mm (for depths, beam widths, DGS, repeats),
+        and to split plan regions by depth: reflectors at different depths
+        are different indications, each sized on its own depth
+        (:mod:`ndtmap.indications.depth_layers`).
     backwall : float or xarray.DataArray, optional
         Back-wall reference: a level in %FSH, or a back-wall amplitude map
         whose nominal level over the sound area (outside indications) is
@@ -197,7 +208,11 @@ def size_indications(
     detection : DetectionOptions, optional
         Smallest region kept, bridging of missing positions.
     loss : LossOptions, optional
-        Also detect back-wall-loss indications (level in dB, loss map).
+        Also detect back-wall-loss indications (level in dB, loss map). A
+        loss region under a flaw echo goes into the flaw's record; with a
+        back-wall amplitude map (or a loss map) every amplitude record
+        carries ``backwall_loss_db``, the largest loss under it
+        (:mod:`ndtmap.indications.backwall`).
     sizing : SizingOptions, optional
         Walking rule of the lengths, measured beam profiles.
     dgs : DgsOptions, optional
@@ -209,7 +224,10 @@ def size_indications(
         gate), checked as possible primaries of repeat echoes.
     echoes : EchoCheck, optional
         Look at the A-scans of this grid for repeat and back-wall echoes
-        (:func:`ndtmap.indications.echoes.classify_echoes`).
+        (:func:`ndtmap.indications.echoes.classify_echoes`), and for echoes
+        at other depths that the gated map hides
+        (:mod:`ndtmap.indications.hidden_echoes`: new indications numbered
+        after the others, depth layers to size on).
     rules : Rules or path, optional
         Screening rules (:func:`ndtmap.indications.screening.screen_records`):
         each record then has ``screening`` and ``exceeded_rules``.
@@ -246,19 +264,22 @@ def size_indications(
         raise ParameterTypeError(f"`echoes` must be an EchoCheck or None, got {type(echoes).__name__}")
     rules_obj = _rules(rules)
 
+    level = _detection_level(amp, threshold_fsh, threshold_db, reference)
     inds = detect_indications(
-        amp, **_detection_level(amp, threshold_fsh, threshold_db, reference), depth_map=depth_map,
-        min_area_mm2=detection.min_area_mm2, min_positions=detection.min_positions,
-        bridge_missing=detection.bridge_missing,
+        amp, **level, depth_map=depth_map, min_area_mm2=detection.min_area_mm2,
+        min_positions=detection.min_positions, bridge_missing=detection.bridge_missing,
+        depth_step_mm=detection.depth_step_mm,
     )
+    layers: dict[int, DepthLayer] = {}
+    if echoes is not None and depth_map is not None:
+        new, layers = depth_layers_from_ascans(echoes.grid, amp, mg.as_map("depth_map", depth_map), inds, level,
+                                               level_fsh=_level_fsh(amp, level))
+        inds = inds + new
     bw = backwall_reference(amp, backwall, backwall_depth_mm, exclude=inds, attrs=attrs)
-    loss_map = loss_map_db(amp, loss, bw) if loss is not None else None
-    loss_inds = [] if loss_map is None else detect_backwall_loss(
-        loss_map, threshold_db=loss.threshold_db, depth_map=depth_map, min_area_mm2=detection.min_area_mm2,
-        min_positions=detection.min_positions, bridge_missing=detection.bridge_missing, first_id=len(inds) + 1,
-    )
+    loss_map, loss_inds, shadow = _backwall_loss_step(amp, inds, loss, bw, depth_map, detection)
     records = _amplitude_records(amp, inds, attrs=attrs, sizing=sizing, flag_options=flag_options, bw=bw,
-                                 dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes)
+                                 dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes, shadow=shadow,
+                                 layers=layers)
     records += [_loss_record(loss_map, ind, level_db=loss.threshold_db, edge=sizing.edge) for ind in loss_inds]
     if rules_obj is not None:
         records, _ = screen_records(records, rules_obj, scanned_area_mm2=scanned_area_mm2(amp))
@@ -276,27 +297,38 @@ def _amplitude_records(
     dgs_inputs: DgsInputs,
     others: list[Indication],
     echoes: EchoCheck | None,
+    shadow: Mapping[int, tuple[float | None, tuple[str, ...]]],
+    layers: Mapping[int, DepthLayer],
 ) -> list[IndicationRecord]:
-    """The records of the amplitude indications: sizes, DGS, flags, map-wide notes and A-scan findings."""
+    """The records of the amplitude indications: sizes, DGS, flags, map-wide notes, A-scan findings, back-wall loss.
+
+    `shadow` gives by id the back-wall loss under the indication (dB, None: unknown) and its notes;
+    `layers` the depth layers from the A-scans to size on (the others that border an indication at
+    another depth are sized on the gated map without the other's positions).
+    """
     noise = noise_level_fsh(amp, inds)
     repeats = repeat_echo_notes(
         inds, backwall_depth_mm=bw.depth_mm, tolerance_mm=flag_options.repeat_tolerance_mm,
         tolerance_fraction=flag_options.repeat_tolerance_fraction, others=others,
     )
     found = echoes.findings(inds) if echoes is not None else {}
+    layers = {**_depth_layers(amp, inds), **layers}
     records = []
     for ind in inds:
-        sizes = size_amplitude_indication(amp, ind, attrs=attrs, options=sizing)
+        layer = layers.get(ind.id, DepthLayer(amp))
+        sizes = size_amplitude_indication(layer.amplitude_map, ind, attrs=attrs, options=sizing)
         ers = dgs_equivalent_size(ind, sizes, backwall=bw, inputs=dgs_inputs)
         validity, validity_notes = amplitude_flags(
             ind, noise_fsh=noise, full_scale_fsh=dgs_inputs.full_scale_fsh, min_snr_db=flag_options.min_snr_db,
             repeat_notes=repeats.get(ind.id, ()), clipped=_clipped_at(amp, ind),
         )
-        notes = _distinct(sizes.notes + ers.notes + validity_notes) + ((_NOISE_UNKNOWN,) if noise is None else ())
+        notes = _distinct(layer.notes + sizes.notes + ers.notes + validity_notes) + (
+            (_NOISE_UNKNOWN,) if noise is None else ())
         echo = found.get(ind.id, EchoFindings())
-        flags = ordered_flags(sizes.flags + ers.flags + validity)
+        flags = ordered_flags(layer.flags + sizes.flags + ers.flags + validity)
+        loss_db, loss_notes = shadow.get(ind.id, (None, ()))
         records.append(IndicationRecord(
-            **_detected_fields(ind),
+            **_detected_fields(ind, loss_db),
             sizing_method="6 dB drop",
             length_scan_mm=finite_or_none(sizes.lengths["scan"].length_mm),
             length_scan_uncertainty_mm=finite_or_none(sizes.lengths["scan"].uncertainty_mm),
@@ -313,7 +345,7 @@ def _amplitude_records(
             beam_width_20db_mm=sizes.beam_width_20db_mm,
             ers_mm=ers.ers_mm, ers_method=ers.ers_method, ers_ratio_db=ers.ers_ratio_db,
             flags=flags + tuple(f for f in echo.flags if f not in flags),
-            notes=notes + echo.notes,
+            notes=notes + echo.notes + loss_notes,
             sized_region=sizes.area.region,
             sizing_level_fsh=finite_or_none(sizes.lengths["scan"].level_fsh),
             length_scan_ends_mm=sizes.ends_mm("scan"),
@@ -321,6 +353,52 @@ def _amplitude_records(
             edge_rule=sizing.edge,
         ))
     return records
+
+
+def _backwall_loss_step(
+    amp: xr.DataArray, inds: list[Indication], loss: LossOptions | None, bw: BackwallReference,
+    depth_map: xr.DataArray | None, detection: DetectionOptions,
+) -> tuple[xr.DataArray | None, list[Indication], dict[int, tuple[float | None, tuple[str, ...]]]]:
+    """The loss map, the back-wall-loss indications and, by flaw id, the loss under the flaw with its notes.
+
+    With ``loss.merge`` the loss regions under flaw echoes go into the flaws' records
+    (:func:`ndtmap.indications.backwall.merge_loss_into_flaws`) and the remaining loss is detected again.
+    """
+    loss_map = loss_map_db(amp, loss, bw)
+    if loss_map is None:
+        return None, [], {}
+    under = loss_under_flaws(loss_map, inds)
+    loss_inds: list[Indication] = []
+    merged: dict[int, list[str]] = {}
+    if loss is not None and loss.threshold_db is not None:
+        def detect_loss(m: xr.DataArray) -> list[Indication]:
+            return detect_backwall_loss(
+                m, threshold_db=loss.threshold_db, depth_map=depth_map, min_area_mm2=detection.min_area_mm2,
+                min_positions=detection.min_positions, bridge_missing=detection.bridge_missing,
+                first_id=len(inds) + 1,
+            )
+        loss_inds = detect_loss(loss_map)
+        if loss.merge and loss_inds and inds:
+            loss_map, merged = merge_loss_into_flaws(loss_map, loss_inds, inds)
+            loss_inds = detect_loss(loss_map) if merged else loss_inds
+    shadow = {}
+    for i in set(under) | set(merged):
+        db, note = under.get(i, (None, None))
+        shadow[i] = (db, ((note,) if note else ()) + tuple(merged.get(i, ())))
+    return loss_map, loss_inds, shadow
+
+
+def _level_fsh(amp: xr.DataArray, level: Mapping[str, Any]) -> np.ndarray:
+    """The detection level at every position, %FSH."""
+    if level.get("threshold_fsh") is not None:
+        return np.full(amp.shape, float(level["threshold_fsh"]))
+    return reference_map(level["reference"], amp) * 10.0 ** (float(level["threshold_db"]) / 20.0)
+
+
+def _depth_layers(amp: xr.DataArray, inds: list[Indication]) -> dict[int, DepthLayer]:
+    """The maps of the indications that border others at another depth (each sized on its own depth)."""
+    by_id = {ind.id: ind for ind in inds}
+    return {i: map_layer(amp, by_id[i], near) for i, near in touching_indications(inds).items()}
 
 
 def _loss_record(loss_map: xr.DataArray, ind: Indication, *, level_db: float, edge: str) -> IndicationRecord:
@@ -344,15 +422,19 @@ def _loss_record(loss_map: xr.DataArray, ind: Indication, *, level_db: float, ed
     )
 
 
-def _detected_fields(ind: Indication) -> dict[str, Any]:
-    """The record fields that come from detection (``area_mm2`` of detection is ``detected_area_mm2``)."""
-    total = ind.backwall_loss_db is not None and np.isinf(ind.backwall_loss_db)
+def _detected_fields(ind: Indication, backwall_loss_db: float | None = None) -> dict[str, Any]:
+    """The record fields that come from detection (``area_mm2`` of detection is ``detected_area_mm2``).
+
+    `backwall_loss_db`: the back-wall loss under a flaw indication (its own for loss indications).
+    """
+    loss = ind.backwall_loss_db if backwall_loss_db is None else backwall_loss_db
+    total = loss is not None and np.isinf(loss)
     return dict(
         id=ind.id, kind=ind.kind, scan_mm=ind.scan_mm, index_mm=ind.index_mm,
         depth_mm=finite_or_none(ind.depth_mm), depth_min_mm=finite_or_none(ind.depth_min_mm),
         depth_max_mm=finite_or_none(ind.depth_max_mm), peak_fsh=finite_or_none(ind.peak_fsh),
         peak_db=finite_or_none(ind.peak_db), reference_fsh=finite_or_none(ind.reference_fsh),
-        backwall_loss_db=finite_or_none(ind.backwall_loss_db), total_backwall_loss=bool(total),
+        backwall_loss_db=finite_or_none(loss), total_backwall_loss=bool(total),
         scan_min_mm=ind.scan_min_mm, scan_max_mm=ind.scan_max_mm, index_min_mm=ind.index_min_mm,
         index_max_mm=ind.index_max_mm, n_positions=ind.n_positions,
         detected_area_mm2=finite_or_none(ind.area_mm2), detection_level=ind.detection_level,

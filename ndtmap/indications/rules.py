@@ -56,7 +56,7 @@ QUANTITIES: dict[str, str] = {
     "length_20db_mm": "the larger of the beam-corrected 20 dB drop lengths, mm",
     "area_mm2": "-6 dB area (back-wall-loss indications: area of the loss region), mm^2",
     "ers_mm": "DGS equivalent flat-bottom-hole diameter, mm",
-    "backwall_loss_db": "largest back-wall loss of a back-wall-loss indication, dB",
+    "backwall_loss_db": "largest back-wall loss of a back-wall-loss indication, or under a flaw echo, dB",
     "peak_fsh": "peak amplitude, %FSH",
     "peak_db": "peak amplitude in dB re the reference level (DAC or reference reflector)",
 }
@@ -575,6 +575,12 @@ def _recording_open(item: _Screened, rl: RecordingLevel, notes: list[str], not_e
     return None
 
 
+def _loss_under_flaw(lim: Limit, item: _Screened) -> bool:
+    """A back-wall-loss limit also holds for the loss under a flaw echo, carried by the flaw's record."""
+    return (lim.kind == "backwall_loss" and lim.quantity == "backwall_loss_db" and item.kind == "amplitude"
+            and item.values.get("backwall_loss_db") is not None)
+
+
 def _screen_one(item: _Screened, rules: Rules) -> IndicationScreening:
     """The screening of one indication against the recording level and the limits.
 
@@ -598,7 +604,7 @@ def _screen_one(item: _Screened, rules: Rules) -> IndicationScreening:
             review.extend(_undermined(item.flags, "amplitude")[1])
     exceeded: list[str] = []
     for lim in rules.limits:
-        if lim.kind is not None and lim.kind != item.kind:
+        if lim.kind is not None and lim.kind != item.kind and not _loss_under_flaw(lim, item):
             continue
         v = item.values[lim.quantity]
         if v is None:

@@ -191,7 +191,7 @@ def _size(grid: xr.Dataset, proc: Procedure, det: Gate, maps: Mapping[str, xr.Da
     if "backwall_amplitude" in maps:
         backwall = {"backwall": maps["backwall_amplitude"], "backwall_depth_mm": maps["backwall_depth"]}
     loss = None
-    if "backwall_loss" in maps and proc.backwall_loss_threshold_db is not None:
+    if "backwall_loss" in maps:  # without a loss level: only the back-wall loss under each flaw record
         loss = LossOptions(proc.backwall_loss_threshold_db, loss_map=maps["backwall_loss"])
     return size_indications(
         maps["amplitude"],
@@ -202,7 +202,8 @@ def _size(grid: xr.Dataset, proc: Procedure, det: Gate, maps: Mapping[str, xr.Da
         loss=loss,
         sizing=SizingOptions(edge=proc.edge),
         dgs=DgsOptions(transfer_correction_db=proc.transfer_correction_db),
-        echoes=EchoCheck(grid, backwall_depth_mm=_nominal_backwall_depth_mm(grid, maps.get("backwall_depth"))),
+        echoes=EchoCheck(grid, backwall_depth_mm=_nominal_backwall_depth_mm(grid, maps.get("backwall_depth")),
+                         backwall_depth_map=maps.get("backwall_depth")),
     )
 
 

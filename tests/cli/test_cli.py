@@ -174,6 +174,20 @@ def test_indications_json_contract(capsys):
                    for r in doc["indications"]) < 0.6 * max(t["length_scan_mm"], t["length_index_mm"])
 
 
+def test_indications_with_backwall_gate_give_backwall_loss_db_on_every_record(capsys):
+    code, out, err = run(capsys, "indications", PLATE, "--gate-mm", "1", "23", "--threshold-fsh", "20",
+                         "--backwall-gate-mm", "23.5", "27", "--format", "json")
+    assert code == 0, err
+    recs = json.loads(out)["indications"]
+    # laminations shadow the back wall: each record carries the loss under it, and the shadow is not reported
+    # again as a back-wall-loss indication of its own (one reflector, one record)
+    assert recs and all(r["kind"] == "amplitude" for r in recs)
+    assert all(r["backwall_loss_db"] is not None and r["backwall_loss_db"] > 6.0 for r in recs)
+    code, out, _ = run(capsys, "indications", PLATE, "--gate-mm", "1", "23", "--threshold-fsh", "20",
+                       "--format", "json")
+    assert code == 0 and all(r["backwall_loss_db"] is None for r in json.loads(out)["indications"])
+
+
 def test_indications_with_backwall_gives_ers(capsys):
     code, out, _ = run(capsys, "indications", FORGING, "--gate-mm", "70", "150", "--threshold-fsh", "2",
                        "--backwall-gate-mm", "150", "166", "--format", "json")

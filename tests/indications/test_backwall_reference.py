@@ -31,8 +31,15 @@ def test_loss_from_the_backwall_map_is_backwall_loss_db_against_the_sound_nomina
                              loss=LossOptions(6.0, loss_map=backwall_loss_db(bw, nominal)))
     assert [r.to_dict() for r in computed] == [r.to_dict() for r in given]
     kinds = [(r.kind, r.backwall_loss_db) for r in computed]
-    # the vanished back wall: the floor of 0.1 %FSH, a finite 58 dB, sized like any loss region
+    # one reflector, one record: the lamination's record carries the loss under it, the vanished back wall at the
+    # floor of 0.1 %FSH (a finite 58 dB); the loss region without a flaw echo stays its own record
+    assert kinds == [("amplitude", pytest.approx(20 * np.log10(80 / 0.1))),
+                     ("backwall_loss", pytest.approx(20 * np.log10(80 / 30)))]
+    assert any("is its shadow" in n for n in computed[0].notes)
+    # every loss region on its own (merge=False): the shadow sized like any loss region
+    separate = size_indications(amp, threshold_fsh=20, backwall=bw, loss=LossOptions(6.0, merge=False))
+    kinds = [(r.kind, r.backwall_loss_db) for r in separate]
     assert kinds[1] == ("backwall_loss", pytest.approx(20 * np.log10(80 / 0.1)))
     assert kinds[2] == ("backwall_loss", pytest.approx(20 * np.log10(80 / 30)))
-    assert computed[1].area_mm2 == pytest.approx(80.0, abs=20.0)  # the 10 x 8 mm region, at the 6 dB crossings
-    assert not computed[1].total_backwall_loss
+    assert separate[1].area_mm2 == pytest.approx(80.0, abs=20.0)  # the 10 x 8 mm region, at the 6 dB crossings
+    assert not separate[1].total_backwall_loss

@@ -237,8 +237,12 @@ def _repeat_note(a: np.ndarray, depth: np.ndarray, d: float, peak: float, multip
 class EchoCheck:
     """Look at the A-scans of `grid` for repeat and back-wall echoes while sizing (see :func:`classify_echoes`).
 
-    Give it to :func:`ndtmap.size_indications` as ``echoes=``; the other
-    fields are :func:`classify_echoes`'s options.
+    Give it to :func:`ndtmap.size_indications` as ``echoes=``; ``curve`` is
+    the depth-dependent recording curve (a DacCurve: a DAC or a DGS level)
+    that a level in dB re the DAC is re, so that echoes the map hides at
+    other depths are judged against the curve at their own depth (without
+    it, such a level is not searched for hidden echoes); the other fields
+    are :func:`classify_echoes`'s options.
     """
 
     grid: xr.Dataset
@@ -248,6 +252,7 @@ class EchoCheck:
     tolerance_fraction: float = 0.03
     min_depth_mm: float | None = None
     backwall_depth_map: xr.DataArray | None = None
+    curve: Any = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.grid, xr.Dataset):

@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -91,8 +91,13 @@ def layer_map(grid: xr.Dataset, amplitude_map: xr.DataArray, lo_mm: float, hi_mm
 def hidden_echo_groups(
     grid: xr.Dataset, amplitude_map: xr.DataArray, depth_map: xr.DataArray, cells: np.ndarray,
     level_fsh: np.ndarray, window_mm: tuple[float, float], resolution_mm: float,
+    level_at_depth: Callable[[np.ndarray], np.ndarray] | None = None,
 ) -> list[dict[str, Any]]:
     """Groups of echoes at other depths than the map's, at the positions `cells`, in scan x index x depth.
+
+    An echo counts where it reaches the detection level: `level_fsh` at its
+    position or, for a level re a depth-dependent curve (DAC, DGS),
+    ``level_at_depth(depth)`` at its own depth (NaN there: not counted).
 
     An echo within one echo length of 2 or 3 times the map's depth at that
     position, and not stronger than the map's echo, is its repeat (multiple
@@ -115,6 +120,10 @@ def hidden_echo_groups(
     z = depth[sel]
     dz = float(np.median(np.diff(z))) if z.size > 1 else 1.0
     gap = max(1, int(resolution_mm / max(dz, 1e-9)))
+    by_depth = None
+    if level_at_depth is not None:  # the curve's level at each sample's own depth
+        by_depth = np.asarray(level_at_depth(z), dtype=np.float64)
+        by_depth = np.where(np.isfinite(by_depth), by_depth, np.inf)
     points = []
     dmap = np.asarray(depth_map.values, dtype=np.float64)
     amap = np.asarray(amplitude_map.values, dtype=np.float64)
@@ -123,7 +132,8 @@ def hidden_echo_groups(
         if not np.all(np.isfinite(e)):
             continue
         d0, a0 = dmap[rows[k], cols[k]], amap[rows[k], cols[k]]
-        peaks, props = sps.find_peaks(e, height=level_fsh[rows[k], cols[k]], distance=gap)
+        height = level_fsh[rows[k], cols[k]] if by_depth is None else by_depth
+        peaks, props = sps.find_peaks(e, height=height, distance=gap)
         for p, h in zip(peaks, props["peak_heights"], strict=True):
             if math.isfinite(d0) and (abs(z[p] - d0) <= resolution_mm or (
                     h <= a0 and min(abs(z[p] - m * d0) for m in (2, 3)) <= resolution_mm)):
@@ -180,7 +190,7 @@ def _owner(group: Mapping[str, Any], inds: Sequence[Indication], res: float) -> 
 
 def depth_layers_from_ascans(
     grid: xr.Dataset, amplitude_map: xr.DataArray, depth_map: xr.DataArray, inds: Sequence[Indication],
-    level: Mapping[str, Any], *, level_fsh: np.ndarray,
+    level: Mapping[str, Any], *, level_fsh: np.ndarray, curve: Any = None,
 ) -> tuple[list[Indication], dict[int, DepthLayer]]:
     """The reflectors the gated map hides (new indications, numbered after `inds`) and the depth layers to size on.
 
@@ -196,6 +206,10 @@ def depth_layers_from_ascans(
         The keywords of the detection level (``threshold_fsh`` or ``threshold_db`` and ``reference``).
     level_fsh : numpy.ndarray
         The detection level at every position, %FSH.
+    curve : DacCurve, optional
+        The depth-dependent curve a level in dB (``threshold_db``) is re:
+        echoes at other depths are then judged against the curve at their
+        own depth, not at the depth of the map's echo.
 
     Returns
     -------
@@ -209,7 +223,15 @@ def depth_layers_from_ascans(
     if tuple(grid.sizes.get(d, 0) for d in ("scan", "index")) != amplitude_map.shape:
         return [], {}
     cells = np.logical_or.reduce([i.region for i in amp_inds])
-    groups = hidden_echo_groups(grid, amplitude_map, depth_map, cells, level_fsh, window, res)
+    level_at_depth = None
+    if curve is not None and level.get("threshold_db") is not None:
+        factor = 10.0 ** (float(level["threshold_db"]) / 20.0)
+
+        def level_at_depth(depth_mm: np.ndarray) -> np.ndarray:
+            return np.asarray(curve.level_fsh(depth_mm), dtype=np.float64) * factor
+
+    groups = hidden_echo_groups(grid, amplitude_map, depth_map, cells, level_fsh, window, res,
+                                level_at_depth=level_at_depth)
     extended: dict[int, list[dict[str, Any]]] = {}
     new: list[Indication] = []
     for g in groups:
@@ -217,7 +239,8 @@ def depth_layers_from_ascans(
         if owner is not None:
             extended.setdefault(owner.id, []).append(g)
             continue
-        found = _layer_indication(grid, amplitude_map, g, level, res, first_id=len(inds) + len(new) + 1)
+        found = _layer_indication(grid, amplitude_map, g, level, res, first_id=len(inds) + len(new) + 1,
+                                  curve=curve)
         new.extend(found)
     layers = {}
     near = touching_indications([*amp_inds, *new])
@@ -229,9 +252,11 @@ def depth_layers_from_ascans(
 
 
 def _layer_indication(grid: xr.Dataset, amplitude_map: xr.DataArray, group: Mapping[str, Any],
-                      level: Mapping[str, Any], res: float, *, first_id: int) -> list[Indication]:
+                      level: Mapping[str, Any], res: float, *, first_id: int, curve: Any = None) -> list[Indication]:
     """The indication(s) on the depth layer of a hidden echo group that contain its strongest echo."""
     lam, dep = layer_map(grid, amplitude_map, group["depth_min_mm"] - res / 2, group["depth_max_mm"] + res / 2)
+    if curve is not None and level.get("threshold_db") is not None:  # re the curve at the layer's own depth
+        level = {**level, "reference": dep.copy(data=np.asarray(curve.level_fsh(dep.values), dtype=np.float64))}
     found = detect_indications(lam, **level, depth_map=dep, first_id=first_id)
     i, j = group["peak"]
     hit = [ind for ind in found if ind.region[i, j]]

@@ -271,9 +271,12 @@ def size_indications(
         depth_step_mm=detection.depth_step_mm,
     )
     layers: dict[int, DepthLayer] = {}
-    if echoes is not None and depth_map is not None:
+    # a level re a depth-dependent curve can judge echoes at other depths only with the curve itself
+    re_curve = level.get("threshold_db") is not None and "dac_level_fsh" in amp.coords
+    if echoes is not None and depth_map is not None and (echoes.curve is not None or not re_curve):
         new, layers = depth_layers_from_ascans(echoes.grid, amp, mg.as_map("depth_map", depth_map), inds, level,
-                                               level_fsh=_level_fsh(amp, level))
+                                               level_fsh=_level_fsh(amp, level),
+                                               curve=echoes.curve if re_curve else None)
         inds = inds + new
     bw = backwall_reference(amp, backwall, backwall_depth_mm, exclude=inds, attrs=attrs)
     loss_map, loss_inds, shadow = _backwall_loss_step(amp, inds, loss, bw, depth_map, detection)

@@ -178,8 +178,9 @@ def _nominal_backwall_depth_mm(grid: xr.Dataset, backwall_depth: xr.DataArray | 
     return nominal if isinstance(nominal, float) else None
 
 
-def _size(grid: xr.Dataset, proc: Procedure, det: Gate, maps: Mapping[str, xr.DataArray]) -> list[IndicationRecord]:
-    """size_indications on the detection maps with the procedure's options."""
+def _size(grid: xr.Dataset, proc: Procedure, det: Gate, maps: Mapping[str, xr.DataArray],
+          curve: DacCurve | None = None) -> list[IndicationRecord]:
+    """size_indications on the detection maps with the procedure's options (and the recording curve)."""
     if det.threshold_db is None:
         level: dict[str, Any] = {"threshold_fsh": det.threshold_fsh}
     elif det.level_re_curve:  # the curve's level where A/DAC peaks, position by position
@@ -203,7 +204,7 @@ def _size(grid: xr.Dataset, proc: Procedure, det: Gate, maps: Mapping[str, xr.Da
         sizing=SizingOptions(edge=proc.edge),
         dgs=DgsOptions(transfer_correction_db=proc.transfer_correction_db),
         echoes=EchoCheck(grid, backwall_depth_mm=_nominal_backwall_depth_mm(grid, maps.get("backwall_depth")),
-                         backwall_depth_map=maps.get("backwall_depth")),
+                         backwall_depth_map=maps.get("backwall_depth"), curve=curve),
     )
 
 
@@ -276,7 +277,7 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
                      "A(t)/curve(t) over the gate")
     maps["depth"] = depth_map(grid, det, detect=proc.detect, result=results[det.name])
     rules = load_rules(proc.rules_path()) if proc.rules is not None else None
-    records = _curve_notes(_size(grid, proc, det, maps), curve)
+    records = _curve_notes(_size(grid, proc, det, maps, curve), curve)
     depth = _nominal_backwall_depth_mm(grid, maps.get("backwall_depth"))
     if depth is not None and det.unit == "mm" and det.follows is None and det.start < depth < det.end:
         notes.append(

@@ -179,6 +179,29 @@ def test_cli_dac_threshold_db_reports_the_deep_echo_above_dac(tmp_path):
     assert code == 0 and len(peaks) >= 1 and max(peaks) == pytest.approx(expected, abs=0.05)
 
 
+def test_cli_dac_judges_an_echo_at_another_depth_against_the_dac_at_its_own_depth(tmp_path):
+    # the shallow echo lies partly under the deep one's positions: the A-scans are searched for it, and with a
+    # level re the DAC it must be judged against the DAC at its own depth (-3.44 dB, worked by hand above), not
+    # against the DAC at the deep echo's depth (that would read +7.9 dB and record it at 0 dB)
+    path = tmp_path / "g.nc"
+    save_grid(_shallow_deep_grid(), path)
+    dac = _write(tmp_path, DAC_TEXT)
+    shallow = 20 * math.log10(50.0 / _hand_dac(_depth(T_SHALLOW)))
+    deep = 20 * math.log10(30.0 / _hand_dac(_depth(T_DEEP)))
+    code, text = _cli(["indications", str(path), "--gate-mm", "5", "55", "--dac", str(dac), "--threshold-db", "0",
+                       "--format", "json"])
+    recs = json.loads(text)["indications"]
+    assert code == 0 and [round(r["depth_mm"]) for r in recs] == [round(_depth(T_DEEP))]
+    code, text = _cli(["indications", str(path), "--gate-mm", "5", "55", "--dac", str(dac), "--threshold-db", "-6",
+                       "--format", "json"])
+    recs = sorted(json.loads(text)["indications"], key=lambda r: r["depth_mm"])
+    assert code == 0 and len(recs) == 2
+    assert recs[0]["depth_mm"] == pytest.approx(_depth(T_SHALLOW), abs=0.1)
+    assert recs[0]["peak_db"] == pytest.approx(shallow, abs=0.1)
+    assert recs[1]["depth_mm"] == pytest.approx(_depth(T_DEEP), abs=0.1)
+    assert recs[1]["peak_db"] == pytest.approx(deep, abs=0.1)
+
+
 @pytest.mark.parametrize("text", ["10,80\n50,20\n", "depth_mm,amplitude_fsh\n50,80\n10,20\n",
                                   "depth_mm,amplitude_fsh\n10,80\n50,0\n", "depth_mm,amplitude_fsh\n10,80\n"])
 def test_cli_bad_dac_file_is_one_line_no_traceback(tmp_path, capsys, text):

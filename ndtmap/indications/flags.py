@@ -42,6 +42,10 @@ Rules used here (each also stated in the function that applies it):
 ``beam_limited_20db``
     The 20 dB drop length is not larger than the -20 dB beam width: the
     beam-corrected 20 dB size is not given.
+``methods_disagree``
+    Two applicable sizing methods disagree by more than their uncertainty
+    (see :mod:`ndtmap.indications.amplitude_sizing`): the larger size was
+    taken.
 ``backwall_echo``
     The depth is the nominal back-wall depth (set by
     :func:`ndtmap.indications.echoes.classify_echoes`, which also adds ``repeat_echo``
@@ -94,6 +98,9 @@ FLAG_MEANINGS: dict[str, str] = {
     "low_snr": "peak less than 6 dB above the noise level of the map: may be noise",
     "data_gap": "missing A-scans inside or next to the sized region or on a sizing line: sizes may be wrong there",
     "beam_limited_20db": "20 dB drop length not larger than the -20 dB beam width: no beam-corrected 20 dB size",
+    "methods_disagree": "two sizing methods that both fit the data (the 6 dB drop from the peak and from the local "
+    "maximum at each edge, where the indication holds several separate maxima) disagree by more than their "
+    "uncertainty: the larger size was taken; review whether it is one reflector or several",
     "backwall_echo": "the echo lies at the nominal back-wall depth: a geometry echo of the back wall reached by "
     "the gate, not a reflector inside the wall",
 }

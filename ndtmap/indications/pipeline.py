@@ -45,6 +45,7 @@ from ndtmap.indications.options import (
     SizingOptions,
     checked_options,
 )
+from ndtmap.indications.outline import SizedOutline
 from ndtmap.indications.record import RECORD_KEYS, IndicationRecord
 from ndtmap.indications.rules import Rules, load_rules
 from ndtmap.indications.screening import screen_records
@@ -218,12 +219,15 @@ def size_indications(
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(20.0), "index": np.arange(20.0)},
     ...                  attrs={"probe_diameter_mm": 10, "probe_frequency_mhz": 5, "velocity_m_s": 5920})
     >>> r = size_indications(m, threshold_fsh=20)[0]
-    >>> r.id, r.peak_fsh, round(r.length_scan_mm, 2), round(r.length_index_mm, 2), r.area_mm2
-    (1, 80.0, 10.03, 6.03, 60.0)
+    >>> r.id, r.peak_fsh, round(r.length_scan_mm, 2), round(r.length_index_mm, 2), round(r.area_mm2, 1)
+    (1, 80.0, 10.03, 6.03, 59.9)
+    >>> r.sizing_method, round(r.length_mm, 2)  # the largest dimension: the diagonal less the cut corners
+    ('6 dB drop', 11.2)
     >>> r.flags  # no depth map: the beam checks are not made (see r.notes)
     ()
     """
     amp = mg.as_map("amplitude_map", amplitude_map)
+    mg.check_mm_coords("amplitude_map", amp)
     attrs = dict(amplitude_map.attrs)
     detection = checked_options("detection", detection, DetectionOptions)
     sizing = checked_options("sizing", sizing, SizingOptions)
@@ -274,8 +278,11 @@ def _amplitude_records(
     )
     found = echoes.findings(inds) if echoes is not None else {}
     records = []
+    everything = np.zeros(amp.shape, dtype=bool)
     for ind in inds:
-        sizes = size_amplitude_indication(amp, ind, attrs=attrs, options=sizing)
+        everything |= ind.region
+    for ind in inds:
+        sizes = size_amplitude_indication(amp, ind, attrs=attrs, options=sizing, exclude=everything & ~ind.region)
         ers = dgs_equivalent_size(ind, sizes, backwall=bw, inputs=dgs_inputs)
         validity, validity_notes = amplitude_flags(
             ind, noise_fsh=noise, full_scale_fsh=dgs_inputs.full_scale_fsh, min_snr_db=flag_options.min_snr_db,
@@ -286,13 +293,8 @@ def _amplitude_records(
         flags = ordered_flags(sizes.flags + ers.flags + validity)
         records.append(IndicationRecord(
             **_detected_fields(ind),
-            sizing_method="6 dB drop",
-            length_scan_mm=finite_or_none(sizes.lengths["scan"].length_mm),
-            length_scan_uncertainty_mm=finite_or_none(sizes.lengths["scan"].uncertainty_mm),
-            length_index_mm=finite_or_none(sizes.lengths["index"].length_mm),
-            length_index_uncertainty_mm=finite_or_none(sizes.lengths["index"].uncertainty_mm),
-            area_mm2=finite_or_none(sizes.area.area_mm2),
-            area_uncertainty_mm2=finite_or_none(sizes.area.uncertainty_mm2),
+            sizing_method=sizes.sizing_method,
+            **_outline_fields(sizes.outline),
             length_scan_20db_mm=sizes.length_20db_mm.get("scan"),
             length_index_20db_mm=sizes.length_20db_mm.get("index"),
             length_scan_20db_raw_mm=sizes.length_20db_raw_mm.get("scan"),
@@ -303,8 +305,7 @@ def _amplitude_records(
             ers_mm=ers.ers_mm, ers_method=ers.ers_method, ers_ratio_db=ers.ers_ratio_db,
             flags=flags + tuple(f for f in echo.flags if f not in flags),
             notes=notes + echo.notes,
-            sized_region=sizes.area.region,
-            sizing_level_fsh=finite_or_none(sizes.lengths["scan"].level_fsh),
+            sizing_level_fsh=finite_or_none(sizes.outline.level_fsh),
             length_scan_ends_mm=sizes.ends_mm("scan"),
             length_index_ends_mm=sizes.ends_mm("index"),
             edge_rule=sizing.edge,
@@ -317,19 +318,27 @@ def _loss_record(loss_map: xr.DataArray, ind: Indication, *, level_db: float, ed
     return IndicationRecord(
         **_detected_fields(ind),
         sizing_method=sizes.sizing_method,
-        length_scan_mm=finite_or_none(sizes.lengths["scan"].length_mm),
-        length_scan_uncertainty_mm=finite_or_none(sizes.lengths["scan"].uncertainty_mm),
-        length_index_mm=finite_or_none(sizes.lengths["index"].length_mm),
-        length_index_uncertainty_mm=finite_or_none(sizes.lengths["index"].uncertainty_mm),
-        area_mm2=finite_or_none(sizes.area.area_mm2),
-        area_uncertainty_mm2=finite_or_none(sizes.area.uncertainty_mm2),
+        **_outline_fields(sizes.outline),
         flags=ordered_flags(sizes.flags),
         notes=_distinct(sizes.notes),
-        sized_region=sizes.area.region,
         sizing_level_db=level_db,
         length_scan_ends_mm=sizes.ends_mm("scan"),
         length_index_ends_mm=sizes.ends_mm("index"),
         edge_rule=edge,
+    )
+
+
+def _outline_fields(o: SizedOutline) -> dict[str, Any]:
+    """The record fields that come from the sized outline (sizes, the polygons, the sized region)."""
+    return dict(
+        length_scan_mm=finite_or_none(o.length_scan_mm),
+        length_scan_uncertainty_mm=finite_or_none(o.length_scan_uncertainty_mm),
+        length_index_mm=finite_or_none(o.length_index_mm),
+        length_index_uncertainty_mm=finite_or_none(o.length_index_uncertainty_mm),
+        length_mm=finite_or_none(o.length_mm), length_uncertainty_mm=finite_or_none(o.length_uncertainty_mm),
+        length_orientation_deg=finite_or_none(o.orientation_deg),
+        area_mm2=finite_or_none(o.area_mm2), area_uncertainty_mm2=finite_or_none(o.area_uncertainty_mm2),
+        sized_region=o.region, outline_polygons=o.polygons,
     )
 
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -25,7 +25,13 @@ from ndtmap.indications.flags import beam_size_flags
 from ndtmap.indications.options import SizingOptions
 from ndtmap.indications.outline import SizedOutline
 from ndtmap.indications.sizing import LengthResult, beam_corrected_length, beam_width_at
-from ndtmap.indications.sizing_methods import EDGE_METHOD, drop_outline, edge_maximum_outline, significant_maxima
+from ndtmap.indications.sizing_methods import (
+    EDGE_METHOD,
+    drop_outline,
+    edge_maximum_outline,
+    level_outline,
+    significant_maxima,
+)
 
 __all__ = ["AmplitudeSizes", "size_amplitude_indication", "finite_or_none"]
 
@@ -226,8 +232,41 @@ def _twenty_db(amp: xr.DataArray, ind: Indication, depth_mm: float, options: Siz
     return w20, corrected, raw, (finite_or_none(max(unc20)) if unc20 else None)
 
 
+def _loss_boundary(outline: SizedOutline, ind: Indication, loss: tuple[xr.DataArray, float] | None, exclude: Any,
+                   flags: list[str], notes: list[str]) -> SizedOutline:
+    """Where the flaw echo shadows the back wall, compare the outline with the boundary of back-wall loss.
+
+    Both methods apply there (a lamination sized by its echo and by the loss
+    of the back wall behind it). When they disagree by more than the larger
+    of their uncertainties the larger (by area) is taken and
+    ``methods_disagree`` says so.
+    """
+    if loss is None:
+        return outline
+    loss_map, level_db = loss
+    peak_loss = float(loss_map.values[ind.peak_position])
+    if not peak_loss >= level_db:  # NaN too: the back wall is not lost behind the peak
+        return outline
+    method = f"back-wall loss >= {level_db:g} dB"
+    boundary = replace(level_outline(loss_map.assign_attrs(units="dB"), ind, level_db=level_db, exclude=exclude),
+                       method=method, level_fsh=None)
+    if boundary.area_mm2 is None or outline.area_mm2 is None or not _disagree(boundary, outline):
+        notes.append(f"the flaw echo shadows the back wall; the boundary of {method} ({_size_text(boundary)}) "
+                     f"agrees with the {outline.method} within the uncertainty")
+        return outline
+    larger = boundary if boundary.area_mm2 > outline.area_mm2 else outline
+    flags.append("methods_disagree")
+    notes.append(
+        f"the flaw echo shadows the back wall: the boundary of {method} gives {_size_text(boundary)}, the "
+        f"{outline.method} {_size_text(outline)}; the methods disagree by more than their uncertainty and the "
+        f"larger ({larger.method}) is taken"
+    )
+    return larger
+
+
 def size_amplitude_indication(
-    amp: xr.DataArray, ind: Indication, *, attrs: Mapping[str, Any], options: SizingOptions, exclude: Any = None
+    amp: xr.DataArray, ind: Indication, *, attrs: Mapping[str, Any], options: SizingOptions, exclude: Any = None,
+    loss: tuple[xr.DataArray, float] | None = None,
 ) -> AmplitudeSizes:
     """Size one amplitude indication on its map by its sized outline (the method chosen as the data show).
 
@@ -243,6 +282,10 @@ def size_amplitude_indication(
         Walking rule (20 dB lengths) and measured beam profiles.
     exclude : numpy.ndarray of bool, optional
         Cells of the other indications (kept out of this one's outline).
+    loss : (xarray.DataArray, float), optional
+        The back-wall-loss map (dB, same positions) and its detection level,
+        dB: where the back wall is lost behind the peak, the loss boundary is
+        compared with the echo's outline.
 
     Returns
     -------
@@ -256,6 +299,7 @@ def size_amplitude_indication(
         w6, n6 = beam_width_at(z, drop_db=6.0, attrs=attrs, beam_profile=options.beam_profile_6db)
         notes.extend(n6)
     outline = _sized_outline(amp, ind, exclude=exclude, w6=w6, flags=flags, notes=notes)
+    outline = _loss_boundary(outline, ind, loss, exclude, flags, notes)
     lengths = _drop_sizes(amp, ind, outline, flags, notes)
     if z is None:
         notes.append("no depth at the peak: no beam width, no 20 dB beam correction, no DGS size")

@@ -233,8 +233,11 @@ def _bracket(frac: np.ndarray, coords: np.ndarray) -> np.ndarray:
 
 def _loops_mm(member: np.ndarray, g: np.ndarray, scan: np.ndarray, index: np.ndarray
               ) -> tuple[list[np.ndarray], list[np.ndarray]]:
-    """Contour loops of `member` in mm and in fractional indices."""
-    h = _contour_field(g, member)
+    """Contour loops of `member` in mm and in fractional indices (traced on its bounding box and one cell more)."""
+    rows, cols = np.flatnonzero(member.any(axis=1)), np.flatnonzero(member.any(axis=0))
+    r0, r1 = max(0, rows[0] - 1), min(member.shape[0], rows[-1] + 2)
+    c0, c1 = max(0, cols[0] - 1), min(member.shape[1], cols[-1] + 2)
+    h = _contour_field(g[r0:r1, c0:c1], member[r0:r1, c0:c1])
     big = float(np.abs(h).max()) + 1.0
     padded = np.pad(h, 1, constant_values=-big)
     loops = measure.find_contours(padded, 0.0, fully_connected="high", positive_orientation="high")
@@ -243,8 +246,8 @@ def _loops_mm(member: np.ndarray, g: np.ndarray, scan: np.ndarray, index: np.nda
         c = c[:-1] if len(c) > 1 and np.array_equal(c[0], c[-1]) else c
         if len(c) < 3:
             continue
-        r = np.clip(c[:, 0] - 1.0, 0.0, scan.size - 1.0)
-        q = np.clip(c[:, 1] - 1.0, 0.0, index.size - 1.0)
+        r = np.clip(c[:, 0] - 1.0 + r0, 0.0, scan.size - 1.0)
+        q = np.clip(c[:, 1] - 1.0 + c0, 0.0, index.size - 1.0)
         frac.append(np.column_stack([r, q]))
         mm.append(np.column_stack([np.interp(r, np.arange(scan.size), scan),
                                    np.interp(q, np.arange(index.size), index)]))

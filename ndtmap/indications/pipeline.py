@@ -251,7 +251,8 @@ def size_indications(
         min_positions=detection.min_positions, bridge_missing=detection.bridge_missing, first_id=len(inds) + 1,
     )
     records = _amplitude_records(amp, inds, attrs=attrs, sizing=sizing, flag_options=flag_options, bw=bw,
-                                 dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes)
+                                 dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes,
+                                 loss=None if loss_map is None else (loss_map, loss.threshold_db))
     records += [_loss_record(loss_map, ind, level_db=loss.threshold_db, edge=sizing.edge) for ind in loss_inds]
     if rules_obj is not None:
         records, _ = screen_records(records, rules_obj, scanned_area_mm2=scanned_area_mm2(amp))
@@ -269,6 +270,7 @@ def _amplitude_records(
     dgs_inputs: DgsInputs,
     others: list[Indication],
     echoes: EchoCheck | None,
+    loss: tuple[xr.DataArray, float] | None = None,
 ) -> list[IndicationRecord]:
     """The records of the amplitude indications: sizes, DGS, flags, map-wide notes and A-scan findings."""
     noise = noise_level_fsh(amp, inds)
@@ -282,7 +284,8 @@ def _amplitude_records(
     for ind in inds:
         everything |= ind.region
     for ind in inds:
-        sizes = size_amplitude_indication(amp, ind, attrs=attrs, options=sizing, exclude=everything & ~ind.region)
+        sizes = size_amplitude_indication(amp, ind, attrs=attrs, options=sizing, exclude=everything & ~ind.region,
+                                          loss=loss)
         ers = dgs_equivalent_size(ind, sizes, backwall=bw, inputs=dgs_inputs)
         validity, validity_notes = amplitude_flags(
             ind, noise_fsh=noise, full_scale_fsh=dgs_inputs.full_scale_fsh, min_snr_db=flag_options.min_snr_db,

@@ -152,7 +152,10 @@ def level_outline(
 
 def local_maximum(values: np.ndarray, source: np.ndarray, scan: np.ndarray, index: np.ndarray,
                   radius_mm: float) -> np.ndarray:
-    """The largest value of the `source` cells within `radius_mm` (mm, in the plane) of each cell; NaN where none.
+    """The largest value of the `source` cells within `radius_mm` of each cell along both axes; NaN where none.
+
+    The window is the square of half-side `radius_mm` (mm, on the positions
+    as they are, uneven spacing included), taken as two 1-D passes.
 
     Examples
     --------
@@ -160,16 +163,16 @@ def local_maximum(values: np.ndarray, source: np.ndarray, scan: np.ndarray, inde
     >>> local_maximum(v, src, np.array([0.0]), np.arange(5.0), 1.0)[0].tolist()
     [5.0, 5.0, 5.0, 2.0, nan]
     """
-    r2 = positive_float("radius_mm", radius_mm) ** 2
+    radius = positive_float("radius_mm", radius_mm)
     vals = np.where(source & np.isfinite(values), values, -np.inf)
     out = np.full(values.shape, -np.inf)
     if source.any():
-        ks = _reach(scan, radius_mm)
-        ki = _reach(index, radius_mm)
+        ks, ki = _reach(scan, radius), _reach(index, radius)
         rows, cols = np.nonzero(source)
         s0, s1 = max(0, rows.min() - ks), min(values.shape[0], rows.max() + ks + 1)
         c0, c1 = max(0, cols.min() - ki), min(values.shape[1], cols.max() + ki + 1)
-        _max_in_disc(vals[s0:s1, c0:c1], scan[s0:s1], index[c0:c1], r2, ks, ki, out[s0:s1, c0:c1])
+        along_scan = _max_within(vals[s0:s1, c0:c1], scan[s0:s1], radius, ks)
+        out[s0:s1, c0:c1] = _max_within(along_scan.T, index[c0:c1], radius, ki).T
     return np.where(np.isfinite(out), out, np.nan)
 
 
@@ -180,21 +183,17 @@ def _reach(x: np.ndarray, radius_mm: float) -> int:
     return min(x.size - 1, int(math.ceil(radius_mm / float(np.min(np.diff(x))))))
 
 
-def _max_in_disc(vals: np.ndarray, scan: np.ndarray, index: np.ndarray, r2: float, ks: int, ki: int,
-                 out: np.ndarray) -> None:
-    ns, ni = vals.shape
-    for di in range(-ks, ks + 1):
-        a0, a1 = max(0, -di), min(ns, ns - di)
-        if a1 <= a0:
-            continue
-        ds2 = (scan[a0 + di:a1 + di] - scan[a0:a1]) ** 2
-        for dj in range(-ki, ki + 1):
-            b0, b1 = max(0, -dj), min(ni, ni - dj)
-            if b1 <= b0:
-                continue
-            d2 = ds2[:, None] + ((index[b0 + dj:b1 + dj] - index[b0:b1]) ** 2)[None, :]
-            cand = np.where(d2 <= r2, vals[a0 + di:a1 + di, b0 + dj:b1 + dj], -np.inf)
-            np.maximum(out[a0:a1, b0:b1], cand, out=out[a0:a1, b0:b1])
+def _max_within(vals: np.ndarray, x: np.ndarray, radius_mm: float, reach: int) -> np.ndarray:
+    """Along the first axis, the largest of `vals` at positions `x` within `radius_mm` of each position."""
+    out = vals.copy()
+    n = vals.shape[0]
+    for d in range(1, reach + 1):
+        if d >= n:
+            break
+        near = np.abs(x[d:] - x[:-d]) <= radius_mm  # pairs (k, k + d) within reach
+        np.maximum(out[:-d], np.where(near[:, None], vals[d:], -np.inf), out=out[:-d])
+        np.maximum(out[d:], np.where(near[:, None], vals[:-d], -np.inf), out=out[d:])
+    return out
 
 
 def significant_maxima(values: np.ndarray, region: np.ndarray, *, dynamic_db: float = 6.0) -> int:
@@ -238,7 +237,8 @@ def edge_maximum_outline(
         The indication: its detected region and its `drop_db` region from
         the peak are where the local maxima are taken.
     radius_mm : float
-        How far from a position its local maximum is sought, mm: at least the
+        How far from a position its local maximum is sought along scan and
+        along index (a square window), mm: at least the
         distance over which the echo rises from an edge to its plateau (about
         one -6 dB beam width).
     drop_db : float, default 6

@@ -139,3 +139,45 @@ def test_angular_positions_are_refused_as_mm(units):
     ind = detect_indications(_small(), threshold_fsh=20)[0]
     with pytest.raises(UnitsError, match="an angle"):
         drop_outline(m, ind)
+
+
+def _lamination_and_loss(echo_half_mm, shadow_half_mm):
+    """An amplitude map of a square lamination echo and the back-wall loss of a (possibly larger) shadow.
+
+    The back-wall echo behind a planar reflector is the part of the beam that misses it:
+    100 %FSH x (1 - covered fraction) (Krautkramer ch. 4, in general terms: the beam's energy is shared
+    between the two reflectors); the loss is -20 log10 of that, so half the beam covered gives 6.02 dB.
+    """
+    ss, ii = pm.fine_raster(70.0, 70.0, pm.FINE_MM)
+    k = pm.psf("gaussian", pm.DEPTH_MM, 10.0, 5.0, pm.FINE_MM)
+    echo = np.where((np.abs(ss - 35.0) <= echo_half_mm) & (np.abs(ii - 35.0) <= echo_half_mm), 60.0, 0.5)
+    amp = pm.reflector_map(echo, pm.FINE_MM, k, attrs=dict(pm.PROBE))
+    shadow = np.where((np.abs(ss - 35.0) <= shadow_half_mm) & (np.abs(ii - 35.0) <= shadow_half_mm), 1.0, 0.0)
+    covered = pm.reflector_map(shadow, pm.FINE_MM, k).values
+    loss = xr.DataArray(-20.0 * np.log10(np.clip(1.0 - covered, 1e-6, None)), dims=("scan", "index"),
+                        coords=amp.coords, attrs={"units": "dB"})
+    return amp, loss
+
+
+def test_back_wall_loss_boundary_that_agrees_leaves_the_echo_size():
+    from ndtmap.indications import LossOptions
+
+    amp, loss = _lamination_and_loss(10.0, 10.0)
+    recs = size_indications(amp, threshold_fsh=20.0, depth_map=xr.full_like(amp, pm.DEPTH_MM),
+                            loss=LossOptions(6.0, loss_map=loss))
+    rec = [r for r in recs if r.kind == "amplitude"][0]
+    assert rec.sizing_method == "6 dB drop" and "methods_disagree" not in rec.flags
+    assert any("agrees" in n for n in rec.notes)
+    assert rec.length_scan_mm == pytest.approx(20.0, abs=_tol(20.0))
+
+
+def test_back_wall_loss_boundary_larger_than_the_echo_is_taken_with_a_flag():
+    from ndtmap.indications import LossOptions
+
+    amp, loss = _lamination_and_loss(8.0, 14.0)  # the lamination shadows 28 mm, its echo comes from 16 mm
+    recs = size_indications(amp, threshold_fsh=20.0, depth_map=xr.full_like(amp, pm.DEPTH_MM),
+                            loss=LossOptions(6.0, loss_map=loss))
+    rec = [r for r in recs if r.kind == "amplitude"][0]
+    assert "methods_disagree" in rec.flags and rec.sizing_method == "back-wall loss >= 6 dB"
+    assert rec.length_scan_mm == pytest.approx(28.0, abs=_tol(28.0))
+    assert rec.sizing_level_fsh is None

@@ -54,7 +54,7 @@ class AmplitudeSizes:
     ----------
     lengths : dict of str to LengthResult
         The outline's extents along ``'scan'`` and ``'index'``, and its width
-        ``'across'`` its largest dimension (for the beam checks).
+        across its largest dimension (for the beam checks).
     outline : SizedOutline
         The sized outline (:mod:`ndtmap.indications.outline`) of the method
         that gave the size.
@@ -103,8 +103,9 @@ def _outline_lengths(o: SizedOutline) -> dict[str, LengthResult]:
         out[axis] = LengthResult(length, unc, None, None, o.level_fsh, o.method, axis, "outline", o.lower_bound,
                                  o.data_gap)
     if o.width_mm is not None:
-        out["across"] = LengthResult(o.width_mm, o.length_uncertainty_mm, None, None, o.level_fsh, o.method,
-                                     "line", "outline", o.lower_bound, o.data_gap)
+        width = "the width across the largest dimension"
+        out[width] = LengthResult(o.width_mm, o.length_uncertainty_mm, None, None, o.level_fsh, o.method, "line",
+                                  "outline", o.lower_bound, o.data_gap)
     return out
 
 

@@ -962,9 +962,10 @@ def _extends_beyond_beam(
         return False, None
     return True, (
         f"along {line.get('axis') if line.get('line') is None else 'the line'} the reflector extends beyond the beam "
-        f"(6 dB length {l6:.1f} mm, more than twice the -6 dB beam width {w6:.1f} mm): the 20 dB beam correction, "
-        "made for edges smaller than the beam, would undersize it there (by roughly 0.15 to 0.45 of the -20 dB "
-        "beam width); no beam-corrected 20 dB length, the 6 dB length is the size along it"
+        f"(6 dB drop length on the line through the peak {l6:.1f} mm, more than twice the -6 dB beam width "
+        f"{w6:.1f} mm): the 20 dB beam correction, made for edges smaller than the beam, would undersize it there "
+        "(by roughly 0.15 to 0.45 of the -20 dB beam width); no beam-corrected 20 dB length, the 6 dB drop gives "
+        "the size along it"
     )
 
 

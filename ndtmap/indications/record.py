@@ -128,9 +128,15 @@ class IndicationRecord(Mapping[str, Any]):
         back-wall-loss indications.
     length_scan_ends_mm, length_index_ends_mm : tuple of float or None
         Positions (mm along the scan / index axis) of the two ends of the
-        measured lengths through the peak.
+        outline's extents.
     edge_rule : {'first', 'outermost'}
         Walking rule of the lengths (:mod:`ndtmap.indications.sizing`).
+    outline_polygons : tuple of numpy.ndarray (n, 2)
+        The sized outline (:mod:`ndtmap.indications.outline`): closed loops
+        of (scan_mm, index_mm), outer boundaries counter-clockwise, holes
+        clockwise (read-only); ``length_scan_mm``, ``length_index_mm``,
+        ``length_mm``, ``length_orientation_deg`` and ``area_mm2`` are its
+        extents, largest dimension and its direction, and enclosed area.
 
     Notes
     -----

@@ -99,8 +99,9 @@ FLAG_MEANINGS: dict[str, str] = {
     "data_gap": "missing A-scans inside or next to the sized region or on a sizing line: sizes may be wrong there",
     "beam_limited_20db": "20 dB drop length not larger than the -20 dB beam width: no beam-corrected 20 dB size",
     "methods_disagree": "two sizing methods that both fit the data (the 6 dB drop from the peak and from the local "
-    "maximum at each edge, where the indication holds several separate maxima) disagree by more than their "
-    "uncertainty: the larger size was taken; review whether it is one reflector or several",
+    "maximum at each edge where the indication holds several separate maxima, or the echo's outline and the "
+    "boundary of back-wall loss behind it) disagree by more than their uncertainty: the larger size was taken; "
+    "review whether it is one reflector or several",
     "backwall_echo": "the echo lies at the nominal back-wall depth: a geometry echo of the back wall reached by "
     "the gate, not a reflector inside the wall",
 }

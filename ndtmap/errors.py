@@ -22,6 +22,7 @@ __all__ = [
     "CalibrationError",
     "SizingError",
     "ProcedureError",
+    "UnitsError",
 ]
 
 
@@ -79,3 +80,7 @@ class SizingError(ParameterError):
 
 class ProcedureError(ParameterError):
     """A procedure or screening-rule file is malformed."""
+
+
+class UnitsError(ParameterError):
+    """A map or its coordinates are in units the method cannot use (a dB map for a %FSH drop, angles for mm)."""

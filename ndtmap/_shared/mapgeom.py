@@ -17,7 +17,7 @@ import numpy as np
 import xarray as xr
 from scipy import interpolate, ndimage
 
-from ndtmap.errors import ParameterError, ParameterTypeError
+from ndtmap.errors import ParameterError, ParameterTypeError, UnitsError
 
 MAP_DIMS = ("scan", "index")
 
@@ -56,6 +56,42 @@ def as_map(name: str, value: Any) -> xr.DataArray:
         raise ParameterTypeError(f"`{name}` must hold real numbers, has dtype {value.dtype}")
     out = value.transpose(*MAP_DIMS)
     return out.copy(data=np.array(out.values, dtype=np.float64))  # one new float64 array
+
+
+#: Coordinate units that are angles, never mm.
+ANGLE_UNITS = frozenset({"deg", "degree", "degrees", "\u00b0", "rad", "radian", "radians", "grad", "gon"})
+
+
+def units_of(da: xr.DataArray | Any) -> str:
+    """The ``units`` attribute of a map or coordinate ('' when missing or not text)."""
+    units = getattr(da, "attrs", {}).get("units", "")
+    return units.strip() if isinstance(units, str) else ""
+
+
+def in_db(da: xr.DataArray) -> bool:
+    """True when a map's ``units`` say dB (``'dB'``, ``'dB re DAC'`` ...)."""
+    return units_of(da).lower().startswith("db")
+
+
+def check_mm_coords(name: str, da: xr.DataArray) -> None:
+    """Refuse a map whose scan or index positions are angles (units deg, degree, rad ...): sizes are in mm."""
+    for dim in MAP_DIMS:
+        units = units_of(da.coords[dim])
+        if units.lower() in ANGLE_UNITS:
+            raise UnitsError(
+                f"`{name}` coordinate `{dim}` has units {units!r}, an angle, but sizes are measured in mm; convert "
+                f"the {dim} positions to mm (arc length = radius x angle in radians) and set their units to 'mm'"
+            )
+
+
+def check_linear_amplitude(name: str, da: xr.DataArray, what: str) -> None:
+    """Refuse a map in dB for a drop or level in %FSH terms (`what` names it)."""
+    if in_db(da):
+        raise UnitsError(
+            f"`{name}` has units {units_of(da)!r} but {what} is a ratio of amplitudes in %FSH (the 6 dB drop is half "
+            "the peak, not the peak less 6 of the map's units); size on the %FSH amplitude map, or state the level "
+            "in dB with `level_db` (level_length, level_area, level_outline)"
+        )
 
 
 def check_same_grid(name: str, value: xr.DataArray, ref_name: str, ref: xr.DataArray) -> None:

@@ -7,7 +7,8 @@ The whole chain is :func:`size_indications`, which returns one
 :class:`FlagOptions` and :class:`EchoCheck`. :func:`screen_records` is the one
 screening step, :func:`largest_indication` the one rule for the largest
 indication. The steps are public too: :func:`detect_indications`,
-:func:`drop_length` and the other sizes, :func:`equivalent_fbh_diameter`,
+:func:`drop_outline` and the other sized outlines (:func:`edge_maximum_outline`,
+:func:`level_outline`), :func:`drop_length` and the other sizes along lines, :func:`equivalent_fbh_diameter`,
 the flags of :data:`FLAG_MEANINGS`, :func:`classify_echoes`, :func:`screen`.
 """
 
@@ -53,6 +54,7 @@ from ndtmap.indications.options import (
     LossOptions,
     SizingOptions,
 )
+from ndtmap.indications.outline import OutlineProperties, SizedOutline, outline_properties
 from ndtmap.indications.pipeline import (
     map_detection_level,
     scanned_area_mm2,
@@ -96,6 +98,12 @@ from ndtmap.indications.sizing import (
     level_length,
     point_reflector_range_at,
 )
+from ndtmap.indications.sizing_methods import (
+    EDGE_METHOD,
+    drop_outline,
+    edge_maximum_outline,
+    level_outline,
+)
 from ndtmap.indications.tables import (
     CSV_COLUMNS,
     format_value,
@@ -121,6 +129,13 @@ __all__ = [
     "beam_width_at",
     "point_reflector_range_at",
     "drop_factor",
+    "SizedOutline",
+    "OutlineProperties",
+    "outline_properties",
+    "drop_outline",
+    "edge_maximum_outline",
+    "level_outline",
+    "EDGE_METHOD",
     "DgsResult",
     "equivalent_fbh_diameter",
     "far_field_fbh_diameter",

@@ -53,6 +53,10 @@ Rules used here (each also stated in the function that applies it):
     come from the gated map alone: where the other echo is the stronger the
     map does not show this reflector, so a length or area there may be short
     (see :mod:`ndtmap.indications.depth_layers`).
+``methods_disagree``
+    Two applicable sizing methods disagree by more than their uncertainty
+    (see :mod:`ndtmap.indications.amplitude_sizing`): the larger size was
+    taken.
 ``backwall_echo``
     Straight beam only: the depth is the nominal back-wall depth within one
     echo half-length (the pulse's depth resolution), set by
@@ -109,6 +113,10 @@ FLAG_MEANINGS: dict[str, str] = {
     "low_snr": "peak less than 6 dB above the noise level of the map: may be noise",
     "data_gap": "missing A-scans inside or next to the sized region or on a sizing line: sizes may be wrong there",
     "beam_limited_20db": "20 dB drop length not larger than the -20 dB beam width: no beam-corrected 20 dB size",
+    "methods_disagree": "two sizing methods that both fit the data (the 6 dB drop from the peak and from the local "
+    "maximum at each edge where the indication holds several separate maxima, or the echo's outline and the "
+    "boundary of back-wall loss behind it) disagree by more than their uncertainty: the larger size was taken; "
+    "review whether it is one reflector or several",
     "backwall_echo": "the echo lies at the nominal back-wall depth: a geometry echo of the back wall reached by "
     "the gate, not a reflector inside the wall",
     "depth_neighbour": "the plan region borders an indication at another depth and was sized on the gated map "
@@ -148,6 +156,9 @@ SCREENING_UNDERMINED_BY: dict[str, dict[str, str]] = {
     "methods_disagree": {"size": "uncertain", "size_20db": "uncertain"},
     # sizes resting on the near-field beam model: estimates
     "near_field": {"size": "uncertain", "size_20db": "uncertain", "ers": "uncertain"},
+    # sized on the gated map beside a reflector at another depth that may hide part of it: can only be larger
+    "depth_neighbour": {"size": "lower_bound", "size_20db": "lower_bound", "ers": "lower_bound",
+                        "amplitude": "lower_bound"},
 }
 
 #: The names of the flags that undermine screening (:data:`SCREENING_UNDERMINED_BY`).

@@ -53,6 +53,7 @@ from ndtmap.indications.options import (
     SizingOptions,
     checked_options,
 )
+from ndtmap.indications.outline import SizedOutline
 from ndtmap.indications.record import RECORD_KEYS, IndicationRecord
 from ndtmap.indications.rules import Rules, load_rules
 from ndtmap.indications.screening import screen_records
@@ -247,12 +248,15 @@ def size_indications(
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(20.0), "index": np.arange(20.0)},
     ...                  attrs={"probe_diameter_mm": 10, "probe_frequency_mhz": 5, "velocity_m_s": 5920})
     >>> r = size_indications(m, threshold_fsh=20)[0]
-    >>> r.id, r.peak_fsh, round(r.length_scan_mm, 2), round(r.length_index_mm, 2), r.area_mm2
-    (1, 80.0, 10.03, 6.03, 60.0)
+    >>> r.id, r.peak_fsh, round(r.length_scan_mm, 2), round(r.length_index_mm, 2), round(r.area_mm2, 1)
+    (1, 80.0, 10.03, 6.03, 59.9)
+    >>> r.sizing_method, round(r.length_mm, 2)  # the largest dimension: the diagonal less the cut corners
+    ('6 dB drop', 11.2)
     >>> r.flags  # no depth map: the beam checks are not made (see r.notes)
     ()
     """
     amp = mg.as_map("amplitude_map", amplitude_map)
+    mg.check_mm_coords("amplitude_map", amp)
     attrs = dict(amplitude_map.attrs)
     detection = checked_options("detection", detection, DetectionOptions)
     sizing = checked_options("sizing", sizing, SizingOptions)
@@ -280,9 +284,11 @@ def size_indications(
         inds = inds + new
     bw = backwall_reference(amp, backwall, backwall_depth_mm, exclude=inds, attrs=attrs)
     loss_map, loss_inds, shadow = _backwall_loss_step(amp, inds, loss, bw, depth_map, detection)
+    # the loss map before the loss under flaw echoes was merged into them: for the loss boundary of a flaw
+    loss_whole = None if loss is None or loss.threshold_db is None else loss_map_db(amp, loss, bw)
     records = _amplitude_records(amp, inds, attrs=attrs, sizing=sizing, flag_options=flag_options, bw=bw,
                                  dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes, shadow=shadow,
-                                 layers=layers)
+                                 layers=layers, loss=None if loss_whole is None else (loss_whole, loss.threshold_db))
     records += [_loss_record(loss_map, ind, level_db=loss.threshold_db, edge=sizing.edge) for ind in loss_inds]
     if rules_obj is not None:
         records, _ = screen_records(records, rules_obj, scanned_area_mm2=scanned_area_mm2(amp))
@@ -302,6 +308,7 @@ def _amplitude_records(
     echoes: EchoCheck | None,
     shadow: Mapping[int, tuple[float | None, tuple[str, ...]]],
     layers: Mapping[int, DepthLayer],
+    loss: tuple[xr.DataArray, float] | None = None,
 ) -> list[IndicationRecord]:
     """The records of the amplitude indications: sizes, DGS, flags, map-wide notes, A-scan findings, back-wall loss.
 
@@ -317,9 +324,15 @@ def _amplitude_records(
     found = echoes.findings(inds) if echoes is not None else {}
     layers = {**_depth_layers(amp, inds), **layers}
     records = []
+    everything = np.zeros(amp.shape, dtype=bool)
+    for ind in inds:
+        everything |= ind.region
     for ind in inds:
         layer = layers.get(ind.id, DepthLayer(amp))
-        sizes = size_amplitude_indication(layer.amplitude_map, ind, attrs=attrs, options=sizing)
+        # other regions are masked on the gated map; a depth layer holds only this reflector's echoes
+        exclude = everything & ~ind.region if layer.amplitude_map is amp else None
+        sizes = size_amplitude_indication(layer.amplitude_map, ind, attrs=attrs, options=sizing, exclude=exclude,
+                                          loss=loss)
         ers = dgs_equivalent_size(ind, sizes, backwall=bw, inputs=dgs_inputs)
         validity, validity_notes = amplitude_flags(
             ind, noise_fsh=noise, full_scale_fsh=dgs_inputs.full_scale_fsh, min_snr_db=flag_options.min_snr_db,
@@ -332,13 +345,8 @@ def _amplitude_records(
         loss_db, loss_notes = shadow.get(ind.id, (None, ()))
         records.append(IndicationRecord(
             **_detected_fields(ind, loss_db),
-            sizing_method="6 dB drop",
-            length_scan_mm=finite_or_none(sizes.lengths["scan"].length_mm),
-            length_scan_uncertainty_mm=finite_or_none(sizes.lengths["scan"].uncertainty_mm),
-            length_index_mm=finite_or_none(sizes.lengths["index"].length_mm),
-            length_index_uncertainty_mm=finite_or_none(sizes.lengths["index"].uncertainty_mm),
-            area_mm2=finite_or_none(sizes.area.area_mm2),
-            area_uncertainty_mm2=finite_or_none(sizes.area.uncertainty_mm2),
+            sizing_method=sizes.sizing_method,
+            **_outline_fields(sizes.outline),
             length_scan_20db_mm=sizes.length_20db_mm.get("scan"),
             length_index_20db_mm=sizes.length_20db_mm.get("index"),
             length_scan_20db_raw_mm=sizes.length_20db_raw_mm.get("scan"),
@@ -349,8 +357,7 @@ def _amplitude_records(
             ers_mm=ers.ers_mm, ers_method=ers.ers_method, ers_ratio_db=ers.ers_ratio_db,
             flags=flags + tuple(f for f in echo.flags if f not in flags),
             notes=notes + echo.notes + loss_notes,
-            sized_region=sizes.area.region,
-            sizing_level_fsh=finite_or_none(sizes.lengths["scan"].level_fsh),
+            sizing_level_fsh=finite_or_none(sizes.outline.level_fsh),
             length_scan_ends_mm=sizes.ends_mm("scan"),
             length_index_ends_mm=sizes.ends_mm("index"),
             edge_rule=sizing.edge,
@@ -409,19 +416,27 @@ def _loss_record(loss_map: xr.DataArray, ind: Indication, *, level_db: float, ed
     return IndicationRecord(
         **_detected_fields(ind),
         sizing_method=sizes.sizing_method,
-        length_scan_mm=finite_or_none(sizes.lengths["scan"].length_mm),
-        length_scan_uncertainty_mm=finite_or_none(sizes.lengths["scan"].uncertainty_mm),
-        length_index_mm=finite_or_none(sizes.lengths["index"].length_mm),
-        length_index_uncertainty_mm=finite_or_none(sizes.lengths["index"].uncertainty_mm),
-        area_mm2=finite_or_none(sizes.area.area_mm2),
-        area_uncertainty_mm2=finite_or_none(sizes.area.uncertainty_mm2),
+        **_outline_fields(sizes.outline),
         flags=ordered_flags(sizes.flags),
         notes=_distinct(sizes.notes),
-        sized_region=sizes.area.region,
         sizing_level_db=level_db,
         length_scan_ends_mm=sizes.ends_mm("scan"),
         length_index_ends_mm=sizes.ends_mm("index"),
         edge_rule=edge,
+    )
+
+
+def _outline_fields(o: SizedOutline) -> dict[str, Any]:
+    """The record fields that come from the sized outline (sizes, the polygons, the sized region)."""
+    return dict(
+        length_scan_mm=finite_or_none(o.length_scan_mm),
+        length_scan_uncertainty_mm=finite_or_none(o.length_scan_uncertainty_mm),
+        length_index_mm=finite_or_none(o.length_index_mm),
+        length_index_uncertainty_mm=finite_or_none(o.length_index_uncertainty_mm),
+        length_mm=finite_or_none(o.length_mm), length_uncertainty_mm=finite_or_none(o.length_uncertainty_mm),
+        length_orientation_deg=finite_or_none(o.orientation_deg),
+        area_mm2=finite_or_none(o.area_mm2), area_uncertainty_mm2=finite_or_none(o.area_uncertainty_mm2),
+        sized_region=o.region, outline_polygons=o.polygons,
     )
 
 

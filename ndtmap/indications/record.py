@@ -26,7 +26,7 @@ import numpy as np
 from ndtmap.errors import ParameterTypeError
 from ndtmap.grid.provenance import jsonable
 
-__all__ = ["RECORD_KEYS", "OPTIONAL_KEYS", "IndicationRecord", "largest_indication"]
+__all__ = ["RECORD_KEYS", "OPTIONAL_KEYS", "NESTED_KEYS", "IndicationRecord", "largest_indication"]
 
 #: Keys of every record, in print order.
 RECORD_KEYS: tuple[str, ...] = (
@@ -45,6 +45,9 @@ RECORD_KEYS: tuple[str, ...] = (
     "length_scan_uncertainty_mm",
     "length_index_mm",
     "length_index_uncertainty_mm",
+    "length_mm",
+    "length_uncertainty_mm",
+    "length_orientation_deg",
     "area_mm2",
     "area_uncertainty_mm2",
     "sizing_method",
@@ -65,9 +68,13 @@ RECORD_KEYS: tuple[str, ...] = (
     "n_positions",
     "detected_area_mm2",
     "detection_level",
+    "outline_mm",
     "flags",
     "notes",
 )
+
+#: Keys of :data:`RECORD_KEYS` that are not flat values (left out of CSV tables).
+NESTED_KEYS: tuple[str, ...] = ("outline_mm",)
 
 #: Keys a record has only where they apply, in this order after :data:`RECORD_KEYS`:
 #: ``total_backwall_loss`` (True, where the back wall vanished completely), ``screening`` and
@@ -121,9 +128,15 @@ class IndicationRecord(Mapping[str, Any]):
         back-wall-loss indications.
     length_scan_ends_mm, length_index_ends_mm : tuple of float or None
         Positions (mm along the scan / index axis) of the two ends of the
-        measured lengths through the peak.
+        outline's extents.
     edge_rule : {'first', 'outermost'}
         Walking rule of the lengths (:mod:`ndtmap.indications.sizing`).
+    outline_polygons : tuple of numpy.ndarray (n, 2)
+        The sized outline (:mod:`ndtmap.indications.outline`): closed loops
+        of (scan_mm, index_mm), outer boundaries counter-clockwise, holes
+        clockwise (read-only); ``length_scan_mm``, ``length_index_mm``,
+        ``length_mm``, ``length_orientation_deg`` and ``area_mm2`` are its
+        extents, largest dimension and its direction, and enclosed area.
 
     Notes
     -----
@@ -140,8 +153,10 @@ class IndicationRecord(Mapping[str, Any]):
     >>> a = np.full((20, 20), 2.0); a[5:15, 6:12] = 80.0
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(20.0), "index": np.arange(20.0)})
     >>> rec = size_indications(m, threshold_fsh=20)[0]
-    >>> rec.area_mm2, rec["area_mm2"], rec.sizing_level_fsh, rec.length_scan_ends_mm
-    (60.0, 60.0, 40.0, (4.5, 14.5))
+    >>> round(rec.area_mm2, 2), rec["area_mm2"] == rec.area_mm2, rec.sizing_level_fsh
+    (59.88, True, 40.0)
+    >>> [round(e, 2) for e in rec.length_scan_ends_mm]  # 40 %FSH lies 0.49 of the way from 80 to 2
+    [4.49, 14.51]
     >>> list(rec.to_dict())[:3]
     ['id', 'kind', 'scan_mm']
     """
@@ -161,6 +176,9 @@ class IndicationRecord(Mapping[str, Any]):
     length_scan_uncertainty_mm: float | None = None
     length_index_mm: float | None = None
     length_index_uncertainty_mm: float | None = None
+    length_mm: float | None = None
+    length_uncertainty_mm: float | None = None
+    length_orientation_deg: float | None = None
     area_mm2: float | None = None
     area_uncertainty_mm2: float | None = None
     sizing_method: str
@@ -194,6 +212,7 @@ class IndicationRecord(Mapping[str, Any]):
     length_scan_ends_mm: tuple[float, float] | None = None
     length_index_ends_mm: tuple[float, float] | None = None
     edge_rule: str = "first"
+    outline_polygons: tuple[np.ndarray, ...] = field(default=(), compare=False, repr=False)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "flags", tuple(self.flags))
@@ -203,21 +222,29 @@ class IndicationRecord(Mapping[str, Any]):
         object.__setattr__(self, "peak_index", (int(self.peak_index[0]), int(self.peak_index[1])))
         object.__setattr__(self, "detected_region", _read_only(self.detected_region))
         object.__setattr__(self, "sized_region", _read_only(self.sized_region))
+        object.__setattr__(self, "outline_polygons", tuple(_read_only_polygon(p) for p in self.outline_polygons))
 
     # ------------------------------------------------------------------ derived values
     @property
-    def length_mm(self) -> float | None:
-        """The longer of the two 6 dB (or loss-level) lengths, mm; None when neither was measured."""
-        lengths = [v for v in (self.length_scan_mm, self.length_index_mm) if v is not None and math.isfinite(v)]
-        return max(lengths) if lengths else None
+    def outline_mm(self) -> list[list[float]] | None:
+        """The outer boundary of the sized outline as [[scan_mm, index_mm], ...] (first vertex not repeated).
+
+        The largest outer loop of :attr:`outline_polygons`, vertices rounded to
+        0.001 mm; None without an outline. Holes (subtracted in ``area_mm2``)
+        are not listed.
+        """
+        outer = [p for p in self.outline_polygons if _signed_area(p) > 0]
+        if not outer:
+            return None
+        return [[round(float(s), 3), round(float(i), 3)] for s, i in max(outer, key=_signed_area)]
 
     @property
     def length_axis(self) -> str | None:
-        """``'scan'`` or ``'index'``: the axis of :attr:`length_mm` (scan on a tie)."""
-        longest = self.length_mm
-        if longest is None:
+        """``'scan'`` or ``'index'``: the axis of the longer extent (scan on a tie)."""
+        lengths = [v for v in (self.length_scan_mm, self.length_index_mm) if v is not None and math.isfinite(v)]
+        if not lengths:
             return None
-        return "scan" if self.length_scan_mm == longest else "index"
+        return "scan" if self.length_scan_mm == max(lengths) else "index"
 
     @property
     def length_20db_mm(self) -> float | None:
@@ -255,6 +282,17 @@ class IndicationRecord(Mapping[str, Any]):
         return len(self._keys())
 
 
+def _signed_area(p: np.ndarray) -> float:
+    x, y = p[:, 0], p[:, 1]
+    return 0.5 * float(np.dot(x, np.roll(y, -1)) - np.dot(np.roll(x, -1), y))
+
+
+def _read_only_polygon(p: Any) -> np.ndarray:
+    out = np.array(p, dtype=np.float64).reshape(-1, 2)
+    out.setflags(write=False)
+    return out
+
+
 def _largest_key(rec: IndicationRecord) -> tuple[float, float, int]:
     return (rec.length_mm or 0.0, rec.peak_fsh if rec.peak_fsh is not None else -math.inf, -rec.id)
 
@@ -263,8 +301,8 @@ def largest_indication(records: Iterable[IndicationRecord]) -> IndicationRecord 
     """The largest indication of a list, by one rule used everywhere (reports, the demonstration).
 
     The largest is the amplitude indication (not flagged ``repeat_echo``)
-    with the longest 6 dB drop length, taking for each indication the longer
-    of its two lengths (:attr:`IndicationRecord.length_mm`); ties go to the
+    with the largest dimension of its sized outline in any direction
+    (:attr:`IndicationRecord.length_mm`); ties go to the
     higher peak amplitude, then to the lower id. Back-wall-loss indications,
     repeat echoes and indications without a measured length are not
     candidates.
@@ -291,8 +329,8 @@ def largest_indication(records: Iterable[IndicationRecord]) -> IndicationRecord 
     >>> a = np.full((30, 30), 2.0); a[2:6, 2:20] = 90.0; a[10:25, 10:16] = 60.0
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(30.0), "index": np.arange(30.0)})
     >>> recs = size_indications(m, threshold_fsh=20)
-    >>> [(r.id, r.length_mm) for r in recs]
-    [(1, 18.0), (2, 15.0)]
+    >>> [(r.id, round(r.length_mm, 1)) for r in recs]  # the largest dimension: nearly the diagonal
+    [(1, 18.3), (2, 15.8)]
     >>> largest_indication(recs).id
     1
     """

@@ -50,9 +50,9 @@ __all__ = [
 #: Quantities a `[[limit]]` may bound, with their meaning (record keys of
 #: :func:`ndtmap.indications.pipeline.size_indications`).
 QUANTITIES: dict[str, str] = {
-    "length_mm": "the larger of the 6 dB drop lengths along the scan and index axes, mm",
-    "length_scan_mm": "6 dB drop length along the scan axis through the peak, mm",
-    "length_index_mm": "6 dB drop length along the index axis through the peak, mm",
+    "length_mm": "largest dimension of the sized outline in any direction, mm",
+    "length_scan_mm": "extent of the sized outline along the scan axis, mm",
+    "length_index_mm": "extent of the sized outline along the index axis, mm",
     "length_20db_mm": "the larger of the beam-corrected 20 dB drop lengths, mm",
     "area_mm2": "-6 dB area (back-wall-loss indications: area of the loss region), mm^2",
     "ers_mm": "DGS equivalent flat-bottom-hole diameter, mm",
@@ -497,7 +497,7 @@ def _longer(*values: Any) -> float | None:
 
 def _from_record(rec: IndicationRecord) -> _Screened:
     values = {q: _finite(getattr(rec, q)) for q in QUANTITIES if q not in ("length_mm", "length_20db_mm")}
-    values["length_mm"] = _longer(rec.length_scan_mm, rec.length_index_mm)
+    values["length_mm"] = _finite(rec.length_mm) or _longer(rec.length_scan_mm, rec.length_index_mm)
     values["length_20db_mm"] = _longer(rec.length_scan_20db_mm, rec.length_index_20db_mm)
     if rec.total_backwall_loss:
         values["backwall_loss_db"] = math.inf
@@ -506,7 +506,8 @@ def _from_record(rec: IndicationRecord) -> _Screened:
 
 def _from_mapping(rec: Mapping[str, Any], k: int) -> _Screened:
     values = {q: _finite(rec.get(q)) for q in QUANTITIES if q not in ("length_mm", "length_20db_mm")}
-    values["length_mm"] = _longer(rec.get("length_scan_mm"), rec.get("length_index_mm"))
+    values["length_mm"] = (_finite(rec.get("length_mm"))
+                           or _longer(rec.get("length_scan_mm"), rec.get("length_index_mm")))
     values["length_20db_mm"] = _longer(rec.get("length_scan_20db_mm"), rec.get("length_index_20db_mm"))
     if rec.get("total_backwall_loss"):
         values["backwall_loss_db"] = math.inf

@@ -41,12 +41,14 @@ the level, the end is the last sample and the length is a lower bound
 
 Uncertainty
 -----------
-Each end contributes half the local spacing of the two samples that bracket
-the crossing (for user lines: half the grid cell size along the line's
-direction), the bound on where the true crossing lies between two samples;
-the two ends are added (a worst-case bound, not a standard deviation). The
-beam is not in this number: where the beam width is comparable to the size,
-the result notes it (see :mod:`ndtmap.indications.flags`).
+An estimate, not a bound. Each end is the linear interpolation between the
+two samples that bracket the crossing; the true crossing lies between the
+same two samples when the amplitude is monotone and noise-free there, so
+each end contributes the full spacing of those two samples (for user lines:
+the grid cell size along the line's direction, at least), and the two ends
+are added. Left out: noise, the sampling of the peak (the level's own
+error) and the beam: where the beam width is comparable to the size, the
+result notes it (see :mod:`ndtmap.indications.flags`).
 
 Beam widths
 -----------
@@ -99,7 +101,7 @@ import xarray as xr
 
 from ndtmap._shared import mapgeom as mg
 from ndtmap._shared.validate import finite_float, one_of, positive_float
-from ndtmap.errors import ParameterError, ParameterTypeError, SizingError
+from ndtmap.errors import ParameterError, ParameterTypeError, SizingError, UnitsError
 from ndtmap.indications.detection import Indication, reference_map
 from ndtmap.physics import beam, piston_field
 
@@ -132,7 +134,7 @@ class LengthResult:
         Distance between the two ends, mm (None when the line never reaches
         the level).
     uncertainty_mm : float or None
-        Bound from the sampling at the two ends, mm (see module notes).
+        Estimate of the sampling error at the two ends, mm (see module notes).
     start_mm, end_mm : tuple of float or None
         (scan, index) positions of the two ends, mm.
     level_fsh : float or None
@@ -263,6 +265,20 @@ def drop_factor(drop_db: float) -> float:
     return 0.5 if drop == 6.0 else 10.0 ** (-drop / 20.0)
 
 
+def _sizing_map(amplitude_map: Any) -> xr.DataArray:
+    """The map as sizing needs it: (scan, index) float64, positions in mm (angles refused)."""
+    amp = mg.as_map("amplitude_map", amplitude_map)
+    mg.check_mm_coords("amplitude_map", amp)
+    return amp
+
+
+def _drop_map(amplitude_map: Any, drop_db: Any) -> xr.DataArray:
+    """A map for a drop from the peak: in %FSH (a map in dB refused), positions in mm."""
+    amp = _sizing_map(amplitude_map)
+    mg.check_linear_amplitude("amplitude_map", amp, f"a {drop_db!r} dB drop from the peak")
+    return amp
+
+
 def _drop_level(values: np.ndarray, pk: tuple[int, int], drop_db: Any, ind: Indication) -> float:
     factor = drop_factor(drop_db)
     peak = float(values[pk])
@@ -284,8 +300,16 @@ def _fixed_level(
         )
     if level_fsh is not None:
         lv = finite_float("level_fsh", level_fsh)
+        mg.check_linear_amplitude("amplitude_map", amp, f"`level_fsh`={lv:g}")
         return np.full(amp.shape, lv), lv, f"fixed level {lv:g} %FSH"
     db = finite_float("level_db", level_db)
+    if mg.in_db(amp):
+        if reference is not None:
+            raise UnitsError(
+                f"`amplitude_map` is in {mg.units_of(amp)!r} while `reference` ({reference!r}) is a level in %FSH; "
+                f"on a map in dB give `level_db` ({db:g}) alone, in the map's dB"
+            )
+        return np.full(amp.shape, db), db, f"fixed level {db:g} dB"
     if reference is None:
         raise ParameterError("`level_db` needs a `reference` level (a number in %FSH or a map)")
     ref = reference_map(reference, amp)
@@ -309,9 +333,9 @@ def _walk(s: np.ndarray, g: np.ndarray, start: int, step: int, half_cell: np.nda
     """Walk from sample `start` (g >= 0) in direction `step` to the first sample with g < 0.
 
     `half_cell` is half the grid cell size at each sample (the uncertainty of
-    an open end, and the least uncertainty of a crossing on a finely sampled
-    line, `fine`); on the grid's own samples a crossing's uncertainty is half
-    the bracketing spacing.
+    an open end; twice it is the least uncertainty of a crossing on a finely
+    sampled line, `fine`); on the grid's own samples a crossing's uncertainty
+    is the bracketing spacing (an estimate, see the module notes).
     """
     kv = start
     gap = False
@@ -331,9 +355,9 @@ def _walk(s: np.ndarray, g: np.ndarray, start: int, step: int, half_cell: np.nda
             if across_gap:
                 u = bracket
             elif fine:
-                u = max(0.5 * bracket, float(half_cell[k]))
+                u = max(bracket, 2.0 * float(half_cell[k]))
             else:
-                u = 0.5 * bracket
+                u = bracket
             return _End(pos=float(pos), u=float(u), open=False, gap=gap)
         k += step
     return _End(pos=float(s[kv]), u=float(half_cell[kv]), open=True, gap=gap)
@@ -543,7 +567,7 @@ def drop_length(
     >>> round(r.length_mm, 3), r.start_mm, r.end_mm
     (2.0, (1.0, 1.333...), (1.0, 3.333...))
     """
-    amp = mg.as_map("amplitude_map", amplitude_map)
+    amp = _drop_map(amplitude_map, drop_db)
     pk = _check_indication(indication, amp.shape)
     level = _drop_level(amp.values, pk, drop_db, indication)
     drop = float(drop_db)
@@ -603,7 +627,7 @@ def level_length(
     >>> level_length(m, ind, level_fsh=20, axis="index").length_mm
     3.0
     """
-    amp = mg.as_map("amplitude_map", amplitude_map)
+    amp = _sizing_map(amplitude_map)
     pk = _check_indication(indication, amp.shape)
     levels, single, method = _fixed_level(amp, level_fsh, level_db, reference)
     return _measure(
@@ -680,7 +704,7 @@ def drop_area(amplitude_map: xr.DataArray, indication: Indication, *, drop_db: f
     >>> drop_area(m, detect_indications(m, threshold_fsh=20)[0]).area_mm2
     24.0
     """
-    amp = mg.as_map("amplitude_map", amplitude_map)
+    amp = _drop_map(amplitude_map, drop_db)
     pk = _check_indication(indication, amp.shape)
     level = _drop_level(amp.values, pk, drop_db, indication)
     return _area(amp, pk, np.full(amp.shape, level), f"-{float(drop_db):g} dB area", level)
@@ -702,7 +726,7 @@ def level_area(
     -------
     AreaResult
     """
-    amp = mg.as_map("amplitude_map", amplitude_map)
+    amp = _sizing_map(amplitude_map)
     pk = _check_indication(indication, amp.shape)
     levels, single, method = _fixed_level(amp, level_fsh, level_db, reference)
     return _area(amp, pk, levels, f"{method} area", single)
@@ -938,9 +962,10 @@ def _extends_beyond_beam(
         return False, None
     return True, (
         f"along {line.get('axis') if line.get('line') is None else 'the line'} the reflector extends beyond the beam "
-        f"(6 dB length {l6:.1f} mm, more than twice the -6 dB beam width {w6:.1f} mm): the 20 dB beam correction, "
-        "made for edges smaller than the beam, would undersize it there (by roughly 0.15 to 0.45 of the -20 dB "
-        "beam width); no beam-corrected 20 dB length, the 6 dB length is the size along it"
+        f"(6 dB drop length on the line through the peak {l6:.1f} mm, more than twice the -6 dB beam width "
+        f"{w6:.1f} mm): the 20 dB beam correction, made for edges smaller than the beam, would undersize it there "
+        "(by roughly 0.15 to 0.45 of the -20 dB beam width); no beam-corrected 20 dB length, the 6 dB drop gives "
+        "the size along it"
     )
 
 
@@ -1009,7 +1034,7 @@ def beam_corrected_length(
         Its uncertainty is the sampling of the drop length plus half the
         spread of the beam width over the probe's band: an estimate (noted).
     """
-    amp = mg.as_map("amplitude_map", amplitude_map)
+    amp = _drop_map(amplitude_map, drop_db)
     walk = dict(axis=axis, line=line, edge=edge, step_mm=step_mm)
     raw = drop_length(amp, indication, drop_db=drop_db, **walk)
     notes = list(raw.notes)

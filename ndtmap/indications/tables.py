@@ -8,12 +8,12 @@ import math
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-from ndtmap.indications.record import RECORD_KEYS, IndicationRecord
+from ndtmap.indications.record import NESTED_KEYS, RECORD_KEYS, IndicationRecord
 
 __all__ = ["CSV_COLUMNS", "indications_csv", "indications_text", "format_value"]
 
-#: Columns of ``indications.csv``: every record key, flags joined with ``;``.
-CSV_COLUMNS: tuple[str, ...] = (*RECORD_KEYS, "screening")
+#: Columns of ``indications.csv``: every flat record key (not the outline's vertices), flags joined with ``;``.
+CSV_COLUMNS: tuple[str, ...] = (*(k for k in RECORD_KEYS if k not in NESTED_KEYS), "screening")
 
 _TEXT_COLUMNS: tuple[tuple[str, str, str], ...] = (
     # key, heading, format

@@ -1,11 +1,14 @@
-"""Indication outlines on maps: the exact cell outline of each indication's sizing region, one style everywhere.
+"""Indication outlines on maps: the sized outline of each indication, one style everywhere.
 
-The outline of an amplitude indication encloses exactly the positions of its
--6 dB region (8-connected to the peak, amplitude at least half the peak),
-each position standing for its midpoint (Voronoi) cell, so the area inside
-the outline is the ``area_mm2`` of the indication table; the outline of a
-back-wall-loss indication encloses its loss region (loss at least the
-detection level). The report's maps and the workbench's plan view draw the
+The outline drawn is the one the indication was sized by: the sub-cell
+contour of its sizing boundary (the -6 dB drop from the peak, the 6 dB drop
+from the local maximum at each edge, or the back-wall-loss level) that the
+record carries (:attr:`ndtmap.indications.IndicationRecord.outline_polygons`,
+see :mod:`ndtmap.indications.outline`), so its extents, largest dimension
+and enclosed area are the record's ``length_scan_mm``, ``length_index_mm``,
+``length_mm`` and ``area_mm2``. A record without polygons is outlined by the
+cells of its sized region (:func:`indication_outline`, each position standing
+for its midpoint cell). The report's maps and the workbench's plan view draw the
 same outlines in the same style: a black line over a white halo, dashed when
 the indication is flagged.
 
@@ -175,7 +178,7 @@ def _sized_region(m: xr.DataArray, rec: IndicationRecord) -> tuple[np.ndarray | 
             or tuple(rec.peak_index) != pk or not region.any()):
         return None, "", pk
     if rec.kind == "amplitude":
-        return region, "-6 dB", pk
+        return region, str(rec.sizing_method or "-6 dB"), pk
     return region, f"loss >= {rec.sizing_level_db:g} dB", pk
 
 
@@ -207,8 +210,13 @@ def _hover(rec: Any) -> str:
         f"length scan {fmt(get('length_scan_mm'))} ± {fmt(get('length_scan_uncertainty_mm'))} mm, "
         f"index {fmt(get('length_index_mm'))} ± {fmt(get('length_index_uncertainty_mm'))} mm"
     )
+    if get("length_mm") is not None:
+        lines.append(f"largest dimension {fmt(get('length_mm'))} mm at {fmt(get('length_orientation_deg'), '.0f')}° "
+                     "from the scan axis")
     if get("area_mm2") is not None:
         lines.append(f"area {fmt(get('area_mm2'), '.0f')} ± {fmt(get('area_uncertainty_mm2'), '.0f')} mm²")
+    if get("sizing_method") is not None:
+        lines.append(f"sized by {escape(get('sizing_method'))}")
     if get("ers_mm") is not None:
         lines.append(f"ERS {fmt(get('ers_mm'), '.2f')} mm ({escape(get('ers_method'))})")
     flags = list(get("flags") or [])
@@ -230,12 +238,13 @@ class IndicationOutline:
         ``'amplitude'`` or ``'backwall_loss'``.
     polygons : tuple of numpy.ndarray
         Closed polygons (n, 2) of (scan_mm, index_mm), first vertex not
-        repeated (:func:`indication_outline`); empty when the map is not the
+        repeated: the record's sized outline (else the cells of its sized
+        region, :func:`indication_outline`); empty when the map is not the
         one the indication was sized on (then it is marked at its peak only).
     peak_mm : (float, float)
         The peak position on the map's positions, mm.
     region : str
-        What the outline encloses, e.g. ``'-6 dB'`` or ``'loss >= 6 dB'``.
+        What the outline encloses: the sizing method, e.g. ``'6 dB drop'``, or ``'loss >= 6 dB'``.
     flags : tuple of str
         The record's flags (flagged outlines are dashed).
     hover : str
@@ -279,6 +288,7 @@ def indication_outlines(indications: Sequence[Mapping[str, Any]] | None, outline
         amplitude indications (outline: the -6 dB region), a back-wall-loss
         map in dB for back-wall-loss indications (outline: loss at least
         the detection level). Records of the other kind get no polygons.
+        The polygons are the records' sized outlines.
 
     Returns
     -------
@@ -297,8 +307,9 @@ def indication_outlines(indications: Sequence[Mapping[str, Any]] | None, outline
     >>> a = np.zeros((5, 5)); a[1:3, 1:4] = 80.0
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(5.0), "index": np.arange(5.0)},
     ...                  attrs={"units": "%FSH"})
-    >>> [p.tolist() for p in indication_outlines(size_indications(m, threshold_fsh=20), m)[0].polygons]
-    [[[0.5, 0.5], [2.5, 0.5], [2.5, 3.5], [0.5, 3.5]]]
+    >>> o = indication_outlines(size_indications(m, threshold_fsh=20), m)[0]
+    >>> o.region, o.box_mm()  # the 6 dB crossings lie half-way between 80 and 0
+    ('6 dB drop', (0.5, 2.5, 0.5, 3.5))
     """
     recs = typed_records("indications", indications)
     om = mg.as_map("outline_map", outline_map)
@@ -307,7 +318,9 @@ def indication_outlines(indications: Sequence[Mapping[str, Any]] | None, outline
     out = []
     for rec in recs:
         region, what, pk = _sized_region(om, rec)
-        polys = tuple(indication_outline(region, scan, index)) if region is not None else ()
+        polys: tuple[np.ndarray, ...] = ()
+        if region is not None:
+            polys = tuple(rec.outline_polygons) or tuple(indication_outline(region, scan, index))
         out.append(IndicationOutline(
             id=int(rec["id"]), kind=str(rec["kind"]), polygons=polys,
             peak_mm=(float(scan[pk[0]]), float(index[pk[1]])), region=what,

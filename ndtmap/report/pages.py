@@ -148,13 +148,19 @@ def _first_look(proc: Any) -> dict[str, Any] | None:
     }
 
 
+def _direction(largest: dict[str, Any]) -> str:
+    """' at 35 deg from the scan axis' for a largest dimension with an orientation, else ''."""
+    deg = largest.get("orientation_deg")
+    return "" if deg is None else f" at {deg:.0f}\u00b0 from the scan axis"
+
+
 def _summary_rows(analysis: Any) -> list[tuple[str, str]]:
     recs = analysis.indications
     n_amp = sum(1 for r in recs if r["kind"] == "amplitude")
     largest = largest_summary(recs)
     rows = [
         ("indications", f"{len(recs)} ({n_amp} amplitude, {len(recs) - n_amp} back-wall loss)"),
-        ("largest indication", f"#{largest['id']}: {largest['length_mm']:.1f} mm along {largest['axis']} "
+        ("largest indication", f"#{largest['id']}: {largest['length_mm']:.1f} mm{_direction(largest)} "
                                f"(by the {LARGEST_BY})" if largest else "-"),
     ]
     if analysis.screening is not None:
@@ -340,7 +346,7 @@ def _part_row(p: PartReport, root: Path) -> dict[str, str]:
         "part_id": p.part_id or "-",
         "source": p.source,
         "indications": f"{p.n_indications} ({p.n_amplitude} amplitude, {p.n_backwall_loss} back-wall loss)",
-        "largest": f"#{lg['id']}: {lg['length_mm']:.1f} mm ({lg['axis']})" if lg else "-",
+        "largest": f"#{lg['id']}: {lg['length_mm']:.1f} mm{_direction(lg)}" if lg else "-",
         "rules": _rules_cell(p),
         "settings": "first look" if p.first_look else "procedure",
     }

@@ -17,7 +17,7 @@ __all__ = ["FigureFile", "PartReport", "ReportError", "ReportResult", "LARGEST_B
 
 #: How the largest indication of a part is chosen (stated on the pages and in ``summary.json``); the rule is
 #: :func:`ndtmap.indications.largest_indication`.
-LARGEST_BY = ("longest 6 dB drop length (the longer of scan and index) of the amplitude indications that are not "
+LARGEST_BY = ("largest dimension of the sized outline, in any direction, of the amplitude indications that are not "
               "repeat echoes")
 
 
@@ -27,7 +27,9 @@ def largest_summary(records: Sequence[IndicationRecord]) -> dict[str, Any] | Non
     Returns
     -------
     dict or None
-        ``id``, ``length_mm`` (mm), ``axis`` ({'scan', 'index'}), ``ers_mm`` and ``by`` (:data:`LARGEST_BY`).
+        ``id``, ``length_mm`` (mm, the largest dimension), ``orientation_deg`` (its direction from the scan
+        axis), ``axis`` ({'scan', 'index'}: the axis of the longer extent), ``ers_mm`` and ``by``
+        (:data:`LARGEST_BY`).
 
     Examples
     --------
@@ -36,17 +38,16 @@ def largest_summary(records: Sequence[IndicationRecord]) -> dict[str, Any] | Non
     >>> a = np.full((20, 20), 2.0); a[5:9, 3:12] = 80.0
     >>> m = xr.DataArray(a, dims=("scan", "index"), coords={"scan": np.arange(20.0), "index": np.arange(20.0)})
     >>> best = largest_summary(size_indications(m, threshold_fsh=20))
-    >>> best["id"], round(best["length_mm"], 1), best["axis"]
-    (1, 9.0, 'index')
+    >>> best["id"], round(best["length_mm"], 1), best["axis"]  # 4 x 9 mm: the largest dimension is nearly the diagonal
+    (1, 9.5, 'index')
     >>> largest_summary([]) is None
     True
     """
     best = largest_indication(records)
     if best is None:
         return None
-    length = best.length_mm
-    axis = "scan" if best.length_scan_mm == length else "index"
-    return {"id": best.id, "length_mm": float(length), "axis": axis, "ers_mm": best.ers_mm, "by": LARGEST_BY}
+    return {"id": best.id, "length_mm": float(best.length_mm), "orientation_deg": best.length_orientation_deg,
+            "axis": best.length_axis, "ers_mm": best.ers_mm, "by": LARGEST_BY}
 
 
 def relative_path(path: Path, root: Path) -> str:

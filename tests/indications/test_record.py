@@ -2,6 +2,7 @@
 
 import dataclasses
 import json
+import math
 
 import numpy as np
 import pytest
@@ -67,7 +68,10 @@ def test_figure_fields_are_those_the_sizing_used():
     (rec,) = size_indications(_map(a), threshold_fsh=20)
     assert rec.peak_index == (10, 5)  # first maximum in scan, then index order
     assert rec.detected_region.sum() == rec.n_positions == 100
-    assert rec.sized_region.sum() == 100 and rec.area_mm2 == 100.0  # 1 mm cells
+    # the outline crosses 40 %FSH at t = 40/78 of a step beyond the plateau, and cuts each corner by a
+    # right triangle of legs t (geometry by hand)
+    t = 40.0 / 78.0
+    assert rec.sized_region.sum() == 100 and rec.area_mm2 == pytest.approx((9.0 + 2 * t) ** 2 - 2 * t**2)
     assert rec.sizing_level_fsh == 40.0 and rec.sizing_level_db is None  # 6 dB: half the peak
     s0, s1 = rec.length_scan_ends_mm
     assert s1 - s0 == pytest.approx(rec.length_scan_mm)
@@ -87,10 +91,13 @@ def test_loss_record_carries_its_level_and_total_loss():
     assert rec.sizing_method == "back-wall loss >= 6 dB"
 
 
-def test_largest_is_the_longest_6db_length_not_a_repeat_echo_ties_by_peak():
+def test_largest_is_the_largest_dimension_not_a_repeat_echo_ties_by_peak():
     recs = size_indications(_two_plates(), threshold_fsh=20)
     assert [(r.id, r.length_axis) for r in recs] == [(1, "index"), (2, "scan")]
-    assert recs[0].length_mm == pytest.approx(18.0, abs=0.1) and recs[1].length_mm == pytest.approx(15.0, abs=0.1)
+    assert recs[0].length_index_mm == pytest.approx(18.0, abs=0.1)
+    assert recs[1].length_scan_mm == pytest.approx(15.0, abs=0.1)
+    for r in recs:  # a largest dimension is at least every extent and at most the diagonal of the extents (geometry)
+        assert max(r.length_scan_mm, r.length_index_mm) < r.length_mm <= math.hypot(r.length_scan_mm, r.length_index_mm)
     assert largest_indication(recs).id == 1
     # a repeat echo does not count, however long
     recs[0] = dataclasses.replace(recs[0], flags=("repeat_echo",))
@@ -99,7 +106,7 @@ def test_largest_is_the_longest_6db_length_not_a_repeat_echo_ties_by_peak():
     a = np.full((30, 30), 2.0)
     a[2:6, 2:12] = 50.0
     a[15:19, 2:12] = 70.0
-    tied = [dataclasses.replace(r, length_index_mm=10.0) for r in size_indications(_map(a), threshold_fsh=20)]
+    tied = [dataclasses.replace(r, length_mm=10.0) for r in size_indications(_map(a), threshold_fsh=20)]
     assert tied[0].length_mm == tied[1].length_mm == 10.0
     assert largest_indication(tied).peak_fsh == 70.0 and largest_indication(tied[::-1]).peak_fsh == 70.0
     assert largest_indication([]) is None

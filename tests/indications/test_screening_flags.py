@@ -78,12 +78,12 @@ def _one(rec, rules=RULES):
 
 
 def test_undermining_flags_are_defined_once_and_known():
-    # every name is a flag of ndtmap, or methods_disagree (set by the sizing-method choice)
+    # every name is a flag of ndtmap
     for name in UNDERMINING_FLAGS:
-        assert name in FLAGS or name == "methods_disagree", name
+        assert name in FLAGS, name
     assert set(UNDERMINING_FLAGS) == set(SCREENING_UNDERMINED_BY)
     assert {"saturated", "smaller_than_beam", "at_scan_edge", "data_gap", "repeat_echo", "backwall_echo",
-            "methods_disagree", "near_field"} == set(UNDERMINING_FLAGS)
+            "methods_disagree", "near_field", "depth_neighbour"} == set(UNDERMINING_FLAGS)
     groups = set(QUANTITY_GROUPS.values()) | {"count"}
     for name, effects in SCREENING_UNDERMINED_BY.items():
         assert effects and set(effects) <= groups, name

@@ -59,8 +59,8 @@ def test_large_planar_reflector_6db_drop_gives_true_length_and_width(rect_map):
     assert abs(width.length_mm - 20.0) <= step
     assert length.start_mm[0] == pytest.approx(RECT[0], abs=step)
     assert length.end_mm[0] == pytest.approx(RECT[1], abs=step)
-    # the uncertainty bound is half a spacing per end
-    assert length.uncertainty_mm == pytest.approx(step)
+    # the uncertainty estimate is the bracketing spacing at each end
+    assert length.uncertainty_mm == pytest.approx(2.0 * step)
     assert not length.lower_bound and not length.data_gap
 
 
@@ -207,7 +207,7 @@ def test_crossing_is_interpolated_not_rounded():
     right = np.interp(50.0, values[0, 4:6][::-1], index[4:6][::-1])
     assert r.start_mm[1] == pytest.approx(left)
     assert r.end_mm[1] == pytest.approx(right)
-    assert r.uncertainty_mm == pytest.approx(0.5 * 0.5 + 0.5 * 2.0)
+    assert r.uncertainty_mm == pytest.approx(0.5 + 2.0)  # the two bracketing spacings
 
 
 def test_missing_positions_on_the_line_are_bridged_and_flagged(rect_model):

@@ -30,11 +30,17 @@ def test_map_figure_uses_the_recorded_positions_and_outlines_each_indication(rin
     assert fig.layout.yaxis.scaleanchor == "x" and fig.layout.yaxis.scaleratio == 1
     outlines = [t for t in fig.data[1:] if t.mode == "lines" and "halo" not in (t.name or "")]
     assert len(outlines) == len(recs)
-    # the outline of the smaller reflector (one position at (11.0, 2.0)) is its midpoint cell
+    # the outline of the smaller reflector (one position at (11.0, 2.0)) crosses half its peak between that
+    # position and its neighbours at 9.0 and 12.0 mm, by linear interpolation (numpy.interp as the reference)
     small = [r for r in recs if r["peak_fsh"] == 80.0][0]
     assert any(a.text.startswith(f"#{small['id']} ") for a in fig.layout.annotations)
     xs = [x for x in outlines[[r["id"] for r in recs].index(small["id"])].x if x is not None]
-    assert min(xs) == pytest.approx(10.0) and max(xs) == pytest.approx(11.5)  # halfway to 9.0 and 12.0
+    line = m.sel(index=2.0)
+    k = int(np.flatnonzero(m.scan.values == 11.0)[0])
+    lo = np.interp(40.0, line.values[k - 1:k + 1], m.scan.values[k - 1:k + 1])
+    hi = np.interp(40.0, line.values[k:k + 2][::-1], m.scan.values[k:k + 2][::-1])
+    assert min(xs) == pytest.approx(lo) and max(xs) == pytest.approx(hi)
+    assert (min(xs), max(xs)) == pytest.approx(small.length_scan_ends_mm)
 
 
 def test_flagged_indications_are_dashed_with_their_flags(amp_map):

@@ -55,7 +55,8 @@ def test_outline_encloses_exactly_the_6db_region_and_its_area(ring_map):
     xe, ye = midpoint_edges(scan), midpoint_edges(index)
     expected = float(np.outer(np.diff(xe), np.diff(ye))[region].sum())
     assert sum(shoelace(p) for p in polys) == pytest.approx(expected, rel=1e-12)
-    assert rec["area_mm2"] == pytest.approx(expected, rel=1e-12)  # the table's -6 dB area
+    # the table's area is that of the record's sub-cell outline (the figures draw it)
+    assert rec["area_mm2"] == pytest.approx(abs(sum(shoelace(p) for p in rec.outline_polygons)), rel=1e-12)
     assert any(shoelace(p) < 0 for p in polys)  # the dip at (4, 4) is a hole
     # every cell centre is inside the outline exactly when it is in the region (even-odd over all loops)
     S, I = np.meshgrid(scan, index, indexing="ij")
@@ -72,8 +73,9 @@ def test_outlines_of_records_are_their_sizing_regions(ring_map):
     outs = indication_outlines(recs, ring_map)
     assert [o.id for o in outs] == [r["id"] for r in recs]
     for o, r in zip(outs, recs, strict=True):
-        assert o.region == "-6 dB" and o.peak_mm == (r["scan_mm"], r["index_mm"])
-        assert sum(shoelace(p) for p in o.polygons) == pytest.approx(r["area_mm2"], rel=1e-12)
+        assert o.region == r["sizing_method"] and o.peak_mm == (r["scan_mm"], r["index_mm"])
+        assert abs(sum(shoelace(p) for p in o.polygons)) == pytest.approx(r["area_mm2"], rel=1e-12)
+        assert all(np.array_equal(a, b) for a, b in zip(o.polygons, r.outline_polygons, strict=True))
         assert o.flags == tuple(r["flags"])
     # records of another kind, or on a map of another unit, are drawn at their peak only
     depth = ring_map.assign_attrs(units="mm", long_name="event depth")
@@ -96,7 +98,11 @@ def test_loss_outline_encloses_the_positions_at_or_above_the_detection_level(amp
     assert rec.kind == "backwall_loss" and rec.sizing_level_db == 6.0
     (o,) = indication_outlines([rec], m)
     assert o.region == "loss >= 6 dB"
-    assert sum(shoelace(p) for p in o.polygons) == pytest.approx(9.0)  # 3 x 3 cells of 1 mm^2
+    # 3 x 3 positions at 9 dB in 0 dB: the 6 dB boundary lies 1/3 mm beyond them and cuts each corner by a
+    # right triangle of legs 1/3 mm (geometry by hand)
+    side = 2.0 + 2.0 / 3.0
+    assert sum(shoelace(p) for p in o.polygons) == pytest.approx(side**2 - 4 * 0.5 / 9.0)
+    assert rec.area_mm2 == pytest.approx(side**2 - 4 * 0.5 / 9.0)
 
 
 def test_the_merged_traces_draw_the_same_lines_as_the_per_indication_traces(amp_map):

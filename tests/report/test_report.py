@@ -327,7 +327,7 @@ def test_batch_with_a_corrupt_file_finishes_the_others(tmp_path, capsys, session
     assert "broken.nc" in text and reason in text
     for part in summary["parts"]:
         assert (out / part["page"]).is_file()
-        assert part["largest_indication"]["by"].startswith("longest 6 dB drop length")
+        assert part["largest_indication"]["by"].startswith("largest dimension of the sized outline")
         if session:
             assert png_size((out / part["folder"] / "figures" / "amplitude.png").read_bytes()) == (2700, 1950)
     assert hashes == {p.name: sha(p) for p in folder.iterdir()}  # inputs unchanged

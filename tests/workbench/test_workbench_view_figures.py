@@ -43,7 +43,7 @@ def test_plan_view_shows_the_map_with_mm_axes_and_a_labelled_colour_bar(state):
     assert "display only" in vf.plan_view(state, m, max_cells=30).layout.title.text
 
 
-def test_plan_view_outlines_the_listed_indications_by_their_exact_cells(state):
+def test_plan_view_outlines_the_listed_indications_by_their_sized_outlines(state):
     assert len(_trace(vf.plan_view(state, state.map()), "outlines").x) == 0  # not listed yet: nothing outlined
     analysis = state.analysis()
     recs = [r for r in analysis.indications if r["kind"] == "amplitude"]
@@ -55,7 +55,10 @@ def test_plan_view_outlines_the_listed_indications_by_their_exact_cells(state):
     xs = [x for k in ("outlines", "flagged_outlines") for x in _trace(fig, k).x if x is not None]
     assert sorted(xs) == sorted(float(v) for o in want for p in o.polygons for v in [*p[:, 0], p[0, 0]])
     assert [(o.id, o.region) for o in state.indication_outlines()] == [(o.id, o.region) for o in want]
-    assert {o.region for o in want} == {"-6 dB"}
+    assert {o.region for o in want} <= {"6 dB drop", "6 dB drop from the local maximum at each edge",
+                                        f"loss >= {state.settings.backwall_loss_threshold_db:g} dB"}
+    assert all(np.array_equal(p, q) for o, r in zip(want[:len(recs)], recs, strict=True)
+               for p, q in zip(o.polygons, r.outline_polygons, strict=True))  # the records' sized outlines
 
 
 def test_ascan_and_section_views(state):

@@ -672,6 +672,7 @@ def chord_path(
             within = np.arctan2(t, p) - math.atan2(-d_out, p)
             leg_angle = math.atan2(d_out, p) - math.atan2(-d_out, p)
             ends_outer = np.ones_like(s, dtype=bool)
+        within = np.clip(within, 0.0, leg_angle)  # rounding must not step back past a leg's ends
         rho = np.hypot(p, t)
         depth = rho - small if from_bore else big - rho
         incidence = np.degrees(np.arcsin(np.clip(p / np.where(ends_outer, big, small if small > 0 else big), 0, 1)))

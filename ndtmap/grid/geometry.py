@@ -51,6 +51,7 @@ __all__ = [
     "chord_path",
     "ReflectorPosition",
     "reflector_position",
+    "echo_positions",
     "plate_sound_path_mm",
     "chord_sound_path_mm",
 ]
@@ -717,6 +718,12 @@ class ReflectorPosition:
         the circumference at the reflector are differences of it.
     sound_path_mm : numpy.ndarray
         The sound paths, as given.
+    toward : numpy.ndarray of str
+        The surface the current leg runs to: 'opposite' (the back wall; the outer surface from the bore,
+        the bore from outside) or 'scanned'; '' where the sound path is invalid.
+    incidence_deg : numpy.ndarray
+        Angle of incidence (from the normal) at that surface: the beam angle on a plate or along the
+        axis, ``asin(p / radius)`` on a chord.
     reaches_opposite : bool
         Whether the beam reaches the surface opposite the scanned one (see :func:`chord_path`).
     """
@@ -729,7 +736,13 @@ class ReflectorPosition:
     radius_mm: np.ndarray
     arc_mm: np.ndarray
     sound_path_mm: np.ndarray
+    toward: np.ndarray
+    incidence_deg: np.ndarray
     reaches_opposite: bool
+
+
+def _toward(leg: np.ndarray, opposite: np.ndarray) -> np.ndarray:
+    return np.where(np.isfinite(leg), np.where(opposite, "opposite", "scanned"), "")
 
 
 def _plate_depth(geo: PartGeometry, unfolded: np.ndarray, thickness: float | None) -> tuple[np.ndarray, np.ndarray]:
@@ -821,7 +834,8 @@ def reflector_position(scan_mm: Any, index: Any, sound_path: Any, geometry: Part
         leg, depth = _plate_depth(geometry, unfolded, geometry.thickness_mm)
         ahead = s * math.sin(theta)
         return ReflectorPosition(scan + ahead * round(math.cos(skew), 15), idx + ahead * round(math.sin(skew), 15),
-                                 nan, depth, leg, nan, nan, s, True)
+                                 nan, depth, leg, nan, nan, s, _toward(leg, leg % 2 == 1),
+                                 np.where(np.isfinite(leg), geometry.beam_angle_deg, np.nan), True)
     r_scan = geometry.scanned_radius_mm
     probe_deg = idx if geometry.index_units == "deg" else np.degrees(idx / r_scan)
     if path == "axial":
@@ -829,6 +843,8 @@ def reflector_position(scan_mm: Any, index: Any, sound_path: Any, geometry: Part
         radius, angle, depth = _axial_on_cylinder(geometry, depth, probe_deg)
         axial = scan + s * math.sin(theta) * round(math.cos(skew), 15)
         reaches = True
+        toward = _toward(leg, leg % 2 == 1)
+        incidence = np.where(np.isfinite(leg), geometry.beam_angle_deg, np.nan)
     else:
         chord = chord_path(s, geometry.beam_angle_deg, geometry.outer_diameter_mm,  # type: ignore[arg-type]
                            geometry.inner_diameter_mm, geometry.scanned_surface)
@@ -836,8 +852,45 @@ def reflector_position(scan_mm: Any, index: Any, sound_path: Any, geometry: Part
         radius, depth, leg, reaches = chord.radius_mm, chord.depth_mm, chord.leg, chord.reaches_opposite
         angle = probe_deg + sense * chord.angle_deg
         axial = scan + 0.0 * s
+        far = "outer" if geometry.scanned_surface == "inner" else "inner"
+        toward = _toward(leg, chord.leg_ends_on == far)
+        incidence = chord.incidence_deg
     index_out = angle if geometry.index_units == "deg" else np.radians(angle) * r_scan
-    return ReflectorPosition(axial, index_out, angle, depth, leg, radius, np.radians(angle) * radius, s, reaches)
+    return ReflectorPosition(axial, index_out, angle, depth, leg, radius, np.radians(angle) * radius, s,
+                             toward, incidence, reaches)
+
+
+def echo_positions(grid: xr.Dataset, scan_mm: Any, index: Any, time_us: Any) -> ReflectorPosition:
+    """Place echoes found in `grid` at their reflectors: the grid's calibration, then :func:`reflector_position`.
+
+    The sound path comes from the grid's velocity and zero offset
+    (:class:`PartConstants`), the part and the beam from its attributes
+    (:func:`part_geometry`).
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        A valid scan grid.
+    scan_mm, index : array_like
+        Probe positions of the echoes (index in the grid's index units).
+    time_us : array_like
+        Echo times on the grid's time axis, us.
+
+    Returns
+    -------
+    ReflectorPosition
+
+    Examples
+    --------
+    >>> from ndtmap.grid.examples import example_grid
+    >>> g = example_grid(beam_angle_deg=45.0).assign_attrs(part_thickness_mm=5.0)
+    >>> r = echo_positions(g, 2.0, 0.0, 4.0)  # 4 us: 11.84 mm of sound path, 8.37 mm unfolded: 2nd leg
+    >>> [round(float(v), 3) for v in (r.scan_mm, r.depth_mm, r.leg)]
+    [10.372, 1.628, 2.0]
+    """
+    grid = check_grid(grid)
+    path = part_constants(grid).sound_path_mm(np.asarray(time_us, dtype=np.float64))
+    return reflector_position(scan_mm, index, path, part_geometry(grid))
 
 
 def plate_sound_path_mm(depth_mm: Any, leg: Any, thickness_mm: float, beam_angle_deg: float) -> np.ndarray:

@@ -416,6 +416,13 @@ def _check_part_shape(ds: xr.Dataset, problems: list[str]) -> None:
             )
         elif surface == "inner" and inner == 0:
             problems.append("`scanned_surface` is 'inner' but the shaft is solid (`inner_diameter_mm` = 0)")
+        thickness = _number(ds.attrs.get("part_thickness_mm"))
+        wall = (outer - inner) / 2.0
+        if inner > 0 and thickness is not None and inner < outer and abs(thickness - wall) > max(0.01 * wall, 0.1):
+            problems.append(
+                f"`part_thickness_mm` ({thickness:g} mm) differs from the wall (D - d)/2 = {wall:g} mm of the "
+                "cylinder's diameters; correct one of them or remove `part_thickness_mm`"
+            )
     skew = _number(ds.attrs.get("beam_skew_deg", 0.0))
     angle = _number(ds.attrs.get("beam_angle_deg"))
     if skew is not None and angle is not None and angle > 0 and math.isfinite(skew) and not any(

@@ -8,7 +8,15 @@ import xarray as xr
 from helpers.plate_files import plate
 
 from ndtmap.errors import FileFormatError, GridError, ParameterError
-from ndtmap.grid import format_summary, grid_problems, grid_summary, make_grid, part_geometry, reflector_position
+from ndtmap.grid import (
+    echo_positions,
+    format_summary,
+    grid_problems,
+    grid_summary,
+    make_grid,
+    part_geometry,
+    reflector_position,
+)
 from ndtmap.grid.schema import GRID_FORMAT_VERSION, grid_format_version
 from ndtmap.io import export_raw, open_grid, save_grid
 
@@ -157,3 +165,21 @@ def test_summary_names_shape_and_skew():
     assert "index axis   0.000 .. 315.000 deg" in text
     plain = grid_summary(plate(), source="plate.nc")
     assert plain["part"]["shape"] == "plate" and "plate; beam skew 0 deg" in format_summary(plain)
+
+
+def test_wall_thickness_must_agree_with_the_diameters():
+    assert grid_problems(shaft_grid(part_thickness_mm=50.2)) == []  # (160 - 60) / 2 = 50 within 1 %
+    problems = grid_problems(shaft_grid(part_thickness_mm=25.0))
+    assert any("`part_thickness_mm` (25 mm) differs from the wall (D - d)/2 = 50 mm" in p for p in problems)
+
+
+def test_echo_positions_from_a_shaft_grid():
+    # the worked example through the grid's calibration: 2 L / v after pulse entry, shear velocity 3230 m/s
+    # (handbook, from memory), probe at 135 deg toward +index
+    g = shaft_grid()
+    t_us = 2 * 55.923 / 3.230
+    r = echo_positions(g, 4.0, 135.0, t_us)
+    assert float(r.sound_path_mm) == pytest.approx(55.923, abs=1e-9)
+    assert float(r.index_deg) == pytest.approx(135.0 + 29.623, abs=1e-3)
+    assert (str(r.toward), float(r.scan_mm)) == ("opposite", 4.0)
+    assert float(r.incidence_deg) == pytest.approx(15.377, abs=1e-3)

@@ -307,3 +307,20 @@ def test_impossible_cylinders_are_refused(kwargs, match):
 def test_degrees_on_a_plate_are_refused():
     with pytest.raises(ParameterError, match="index_units"):
         PartGeometry(0.0, index_units="deg")
+
+
+def test_toward_and_incidence_name_the_surface_each_leg_runs_to():
+    # plate, 45 deg, T = 20: leg 1 runs to the back wall (the opposite surface), leg 2 back up
+    plate = reflector_position(0.0, 0.0, [10.0, 35.0, np.nan], PartGeometry(45.0, thickness_mm=20.0))
+    assert plate.toward.tolist() == ["opposite", "scanned", ""]
+    np.testing.assert_allclose(plate.incidence_deg, [45.0, 45.0, np.nan])
+    # from outside a 160/60 tube at 20 deg: to the bore at asin(80 sin20 / 30) (law of sines), then back out at 20
+    tube = PartGeometry(20.0, 90.0, "cylinder", outer_diameter_mm=160.0, inner_diameter_mm=60.0)
+    first = float(chord_path(0.0, 20.0, 160.0, 60.0, "outer").leg_mm)
+    r = reflector_position(0.0, 0.0, [0.5 * first, 1.5 * first], tube)
+    assert r.toward.tolist() == ["opposite", "scanned"] and r.reaches_opposite
+    np.testing.assert_allclose(r.incidence_deg, [math.degrees(math.asin(80 * math.sin(math.radians(20)) / 30)), 20.0])
+    # beyond the limit angle every chord returns to the scanned (outer) surface
+    skim = reflector_position(0.0, 0.0, [10.0, 200.0], PartGeometry(
+        45.0, 90.0, "cylinder", outer_diameter_mm=160.0, inner_diameter_mm=60.0))
+    assert skim.toward.tolist() == ["scanned", "scanned"] and not skim.reaches_opposite

@@ -54,6 +54,7 @@ __all__ = [
     "echo_positions",
     "plate_sound_path_mm",
     "chord_sound_path_mm",
+    "bore_limit_angle_deg",
 ]
 
 
@@ -953,3 +954,22 @@ def chord_sound_path_mm(
         else:
             u = p * np.tan(math.atan2(-d_out, p) + phi) + d_out
     return np.where(a >= 0, k * base.leg_mm + u, np.nan)
+
+
+def bore_limit_angle_deg(outer_diameter_mm: float, inner_diameter_mm: float) -> float:
+    """Largest refracted angle at which a beam from the outer surface of a tube still reaches the bore.
+
+    ``asin(d / D)``: beyond it the chord passes the bore by (:func:`chord_path`).
+
+    Examples
+    --------
+    >>> round(bore_limit_angle_deg(160.0, 60.0), 2)   # a beam of 45 deg from outside misses this bore
+    22.02
+    >>> bore_limit_angle_deg(100.0, 0.0)              # a solid shaft has no bore to reach
+    0.0
+    """
+    outer = positive_float("outer_diameter_mm", outer_diameter_mm)
+    inner = nonnegative_float("inner_diameter_mm", inner_diameter_mm)
+    if inner >= outer:
+        raise ParameterError(f"`inner_diameter_mm` ({inner:g}) must be smaller than `outer_diameter_mm` ({outer:g})")
+    return math.degrees(math.asin(inner / outer))

@@ -105,9 +105,9 @@ def _part(ds: Any, problems: list[str]) -> dict[str, Any]:
     attrs = getattr(ds, "attrs", {})
     index = ds.coords["index"].attrs.get("units") if "index" in getattr(ds, "coords", {}) else None
     part: dict[str, Any] = {"shape": attrs.get("part_shape", "plate"),
-                            "beam_skew_deg": grid_attr(ds, "beam_skew_deg", 0.0),
+                            "beam_skew_deg": grid_attr(ds, "beam_skew_deg", 0.0) if attrs else 0.0,
                             "index_units": "deg" if index == "deg" else "mm"}
-    if part["shape"] == "cylinder":
+    if part["shape"] == "cylinder" and attrs:
         for key in ("outer_diameter_mm", "inner_diameter_mm", "scanned_surface"):
             part[key] = grid_attr(ds, key)
     if not problems:

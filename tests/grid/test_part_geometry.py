@@ -18,6 +18,7 @@ from hypothesis import strategies as st
 from ndtmap.errors import ParameterError
 from ndtmap.grid.geometry import (
     PartGeometry,
+    bore_limit_angle_deg,
     chord_path,
     chord_sound_path_mm,
     plate_sound_path_mm,
@@ -159,6 +160,7 @@ def test_limit_angle_from_outside(outer, inner):
     # a beam from the outer surface of a tube reaches the bore only while sin(theta) <= r_i / R
     # (common practice in tube testing, from memory)
     limit = math.degrees(math.asin(inner / outer))
+    assert bore_limit_angle_deg(outer, inner) == pytest.approx(limit, rel=1e-15)
     below = chord_path(1.0, limit - 0.5, outer, inner, "outer")
     above = chord_path(1.0, limit + 0.5, outer, inner, "outer")
     assert below.reaches_opposite and not above.reaches_opposite

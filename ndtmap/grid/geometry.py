@@ -15,6 +15,16 @@ and up again) covers the surface distance ``2 T tan(theta)``. The
 counts down from the surface in odd legs and back up from the back wall in
 even legs.
 
+Where the echo comes from in the part (grid format version 2): a plate or a
+cylinder, the beam travelling in the skew direction on the scanned surface
+(:class:`PartGeometry`, :func:`part_geometry`). :func:`reflector_position`
+places echoes at their reflectors: on a plate and for an axial beam on a
+cylinder by the legs above; for a circumferential or radial beam on a
+cylinder on the exact chords across the wall (:func:`chord_path`: law of
+cosines, incidence by the law of sines, the beam from outside missing the
+bore beyond ``asin(d / D)``). :func:`echo_positions` does the same from a
+grid's echo times.
+
 Units: times in us, lengths in mm, velocities in m/s, angles in degrees.
 """
 

@@ -7,7 +7,9 @@ every other part needs to read a grid correctly:
 * :mod:`ndtmap.grid.schema`: :func:`make_grid`, :func:`validate_grid`,
   :func:`grid_problems` (every problem at once), missing A-scans, samples in %FSH;
 * :mod:`ndtmap.grid.geometry`: THE mapping from recorded time to sound path, depth
-  and surface distance (:class:`PartConstants`), legs and skip distance of angle beams;
+  and surface distance (:class:`PartConstants`), legs and skip distance of angle beams,
+  and the reflector's position in a plate or a cylinder (:class:`PartGeometry`,
+  :func:`reflector_position`, the exact chords of :func:`chord_path`);
 * :mod:`ndtmap.grid.calibration`: velocity and zero offset from known thicknesses
   or echo sequences, :func:`calibrate`;
 * :mod:`ndtmap.grid.provenance`: the processing record every result carries;
@@ -24,11 +26,21 @@ from ndtmap.grid.calibration import (
     zero_offset_from_echo,
 )
 from ndtmap.grid.geometry import (
+    ChordPath,
     PartConstants,
+    PartGeometry,
+    ReflectorPosition,
+    bore_limit_angle_deg,
+    chord_path,
+    chord_sound_path_mm,
     depth_axis,
     depth_from_sound_path_mm,
+    echo_positions,
     leg_and_folded_depth,
     part_constants,
+    part_geometry,
+    plate_sound_path_mm,
+    reflector_position,
     skip_distance_mm,
     sound_path_axis,
     sound_path_from_depth_mm,
@@ -94,6 +106,16 @@ __all__ = [
     "sound_path_axis",
     "depth_axis",
     "surface_distance_axis",
+    "PartGeometry",
+    "part_geometry",
+    "ReflectorPosition",
+    "reflector_position",
+    "echo_positions",
+    "ChordPath",
+    "chord_path",
+    "plate_sound_path_mm",
+    "chord_sound_path_mm",
+    "bore_limit_angle_deg",
     "TwoPointCalibration",
     "velocity_from_thickness",
     "zero_offset_from_echo",

@@ -49,6 +49,11 @@ __all__ = [
     "ascan_in_fsh",
     "time_step_us",
     "grid_attr",
+    "grid_format_version",
+    "with_grid_format",
+    "V2_ATTRS",
+    "PART_SHAPES",
+    "SCANNED_SURFACES",
 ]
 
 #: Dimension names of ``ascan``, in storage order.
@@ -77,6 +82,10 @@ UNIT_ALIASES: dict[str, str] = {
     "%FSH": "%FSH",
     "%fsh": "%FSH",
     "percent FSH": "%FSH",
+    "deg": "deg",
+    "degree": "deg",
+    "degrees": "deg",
+    "°": "deg",
 }
 
 #: Required global attributes: name -> (description, unit).
@@ -100,7 +109,27 @@ OPTIONAL_ATTRS: dict[str, tuple[str, str]] = {
     "operator_notes": ("free text from the acquisition", "text"),
     "water_path_mm": ("water path (immersion or water column) from probe to part surface", "mm"),
     "water_velocity_m_s": ("sound velocity in the water path", "m/s"),
+    # format version 2: the part's shape and the beam's direction on the scanned surface
+    "beam_skew_deg": ("direction of the beam on the scanned surface: 0 +scan, 90 +index, 180 -scan, 270 -index",
+                      "deg"),
+    "part_shape": ("shape of the part", "plate|cylinder"),
+    "outer_diameter_mm": ("outer diameter of a cylinder", "mm"),
+    "inner_diameter_mm": ("bore diameter of a cylinder, 0 for a solid shaft", "mm"),
+    "scanned_surface": ("surface of a cylinder the probe is on", "outer|inner"),
 }
+
+#: Attributes introduced by version 2 of the format; a grid using any of them (or a rotary
+#: index in degrees) is written as version 2, any other grid as version 1.
+V2_ATTRS: tuple[str, ...] = ("beam_skew_deg", "part_shape", "outer_diameter_mm", "inner_diameter_mm",
+                             "scanned_surface")
+#: Attributes that describe a cylinder and need ``part_shape = "cylinder"``.
+CYLINDER_ATTRS: tuple[str, ...] = ("outer_diameter_mm", "inner_diameter_mm", "scanned_surface")
+PART_SHAPES = ("plate", "cylinder")
+SCANNED_SURFACES = ("outer", "inner")
+#: Units the ``index`` coordinate may have on a cylinder (mm of arc on the scanned surface, or degrees).
+INDEX_UNITS_CYLINDER = ("mm", "deg")
+#: Beam skews an angle beam may have on a cylinder: axial (0, 180) or circumferential (90, 270).
+CYLINDER_SKEWS_DEG = (0.0, 90.0, 180.0, 270.0)
 
 WAVE_MODES = ("longitudinal", "shear")
 SIGNAL_KINDS = ("rf", "rectified")
@@ -122,6 +151,9 @@ _OPTIONAL_LIMITS: dict[str, tuple[float, float, bool, bool]] = {
     "digitiser_full_scale_fsh": (0.0, 1e6, False, True),
     "water_path_mm": (0.0, 1e4, True, True),
     "water_velocity_m_s": (100.0, 20000.0, False, True),
+    "beam_skew_deg": (0.0, 360.0, True, False),
+    "outer_diameter_mm": (0.0, 1e5, False, True),
+    "inner_diameter_mm": (0.0, 1e5, True, True),
 }
 
 _UNIFORM_RTOL = 1e-3
@@ -172,7 +204,7 @@ def grid_attr(ds: xr.Dataset, name: str, default: Any = None) -> Any:
     return number if number is not None else value
 
 
-def _check_coord(ds: xr.Dataset, name: str, problems: list[str]) -> None:
+def _check_coord(ds: xr.Dataset, name: str, problems: list[str], units_allowed: tuple[str, ...] = ()) -> None:
     if name not in ds.coords:
         problems.append(
             f"coordinate `{name}` is missing; add it in {COORD_UNITS[name]} "
@@ -186,11 +218,18 @@ def _check_coord(ds: xr.Dataset, name: str, problems: list[str]) -> None:
     units = c.attrs.get("units")
     if units is None:
         problems.append(f"coordinate `{name}` has no `units` attribute; set units={COORD_UNITS[name]!r}")
-    elif UNIT_ALIASES.get(str(units)) != COORD_UNITS[name]:
-        problems.append(
-            f"coordinate `{name}` has units {units!r}; expected {COORD_UNITS[name]!r} "
-            "(convert the values and set the attribute)"
-        )
+    elif UNIT_ALIASES.get(str(units)) not in (units_allowed or (COORD_UNITS[name],)):
+        if name == "index" and UNIT_ALIASES.get(str(units)) == "deg":
+            problems.append(
+                "coordinate `index` is in degrees, which only a cylinder's rotary index may be; "
+                "set part_shape='cylinder' (with its diameters) or give the index in mm"
+            )
+        else:
+            expected = " or ".join(repr(u) for u in (units_allowed or (COORD_UNITS[name],)))
+            problems.append(
+                f"coordinate `{name}` has units {units!r}; expected {expected} "
+                "(convert the values and set the attribute)"
+            )
     values = np.asarray(c.values)
     if values.size == 0:
         problems.append(f"coordinate `{name}` is empty; a grid needs at least one position")
@@ -335,11 +374,103 @@ def grid_problems(ds: Any, *, check_values: bool = True) -> list[str]:
     if not isinstance(ds, xr.Dataset):
         return [f"expected an xarray.Dataset, got {type(ds).__name__}"]
     problems: list[str] = []
+    cylinder = ds.attrs.get("part_shape") == "cylinder"
     for name in DIMS:
-        _check_coord(ds, name, problems)
+        _check_coord(ds, name, problems, INDEX_UNITS_CYLINDER if (cylinder and name == "index") else ())
     _check_ascan(ds, problems, check_values=check_values)
     _check_attrs(ds, problems)
+    _check_part_shape(ds, problems)
     return problems
+
+
+def _check_part_shape(ds: xr.Dataset, problems: list[str]) -> None:
+    """Check the format-2 attributes together: shape, diameters, scanned surface, skew."""
+    shape = ds.attrs.get("part_shape", "plate")
+    if shape not in PART_SHAPES:
+        problems.append(f"global attribute `part_shape` must be 'plate' or 'cylinder', got {shape!r}")
+        return
+    if shape == "plate":
+        for name in CYLINDER_ATTRS:
+            if name in ds.attrs:
+                problems.append(
+                    f"global attribute `{name}` describes a cylinder but `part_shape` is 'plate' (the default); "
+                    "set part_shape='cylinder' or remove it"
+                )
+        return
+    outer = _number(ds.attrs.get("outer_diameter_mm"))
+    inner = _number(ds.attrs.get("inner_diameter_mm"))
+    for name in ("outer_diameter_mm", "inner_diameter_mm"):
+        if name not in ds.attrs:
+            hint = " (0 for a solid shaft)" if name == "inner_diameter_mm" else ""
+            problems.append(f"a cylinder needs the global attribute `{name}` in mm{hint}; it is missing")
+    surface = ds.attrs.get("scanned_surface")
+    if surface not in SCANNED_SURFACES:
+        problems.append(
+            f"a cylinder needs the global attribute `scanned_surface` = 'outer' or 'inner' (probe in the bore), "
+            f"got {surface!r}"
+        )
+    if outer is not None and inner is not None and math.isfinite(outer) and math.isfinite(inner):
+        if inner >= outer:
+            problems.append(
+                f"`inner_diameter_mm` ({inner:g} mm) must be smaller than `outer_diameter_mm` ({outer:g} mm)"
+            )
+        elif surface == "inner" and inner == 0:
+            problems.append("`scanned_surface` is 'inner' but the shaft is solid (`inner_diameter_mm` = 0)")
+        thickness = _number(ds.attrs.get("part_thickness_mm"))
+        wall = (outer - inner) / 2.0
+        if inner > 0 and thickness is not None and inner < outer and abs(thickness - wall) > max(0.01 * wall, 0.1):
+            problems.append(
+                f"`part_thickness_mm` ({thickness:g} mm) differs from the wall (D - d)/2 = {wall:g} mm of the "
+                "cylinder's diameters; correct one of them or remove `part_thickness_mm`"
+            )
+    skew = _number(ds.attrs.get("beam_skew_deg", 0.0))
+    angle = _number(ds.attrs.get("beam_angle_deg"))
+    if skew is not None and angle is not None and angle > 0 and math.isfinite(skew) and not any(
+        abs(skew - allowed) <= 1e-6 for allowed in CYLINDER_SKEWS_DEG
+    ):
+        problems.append(
+            f"`beam_skew_deg` is {skew:g} deg; an angle beam on a cylinder must travel axially (0 or 180) "
+            "or circumferentially (90 or 270): skewed helical paths are not modelled"
+        )
+
+
+def grid_format_version(ds: xr.Dataset) -> str:
+    """The lowest format version that describes `ds`: ``"ndtmap-grid 2"`` if it uses a version-2 feature.
+
+    Version 2 features are the attributes :data:`V2_ATTRS` and an ``index``
+    coordinate in degrees. Writers stamp this version, so that files of a
+    plain flat part stay readable by releases that know only version 1.
+
+    Examples
+    --------
+    >>> import xarray as xr
+    >>> grid_format_version(xr.Dataset(attrs={"velocity_m_s": 5920.0}))
+    'ndtmap-grid 1'
+    >>> grid_format_version(xr.Dataset(attrs={"beam_skew_deg": 90.0}))
+    'ndtmap-grid 2'
+    """
+    uses_v2 = any(name in ds.attrs for name in V2_ATTRS)
+    if "index" in ds.coords and UNIT_ALIASES.get(str(ds.coords["index"].attrs.get("units"))) == "deg":
+        uses_v2 = True
+    return GRID_FORMAT_VERSION if uses_v2 else GRID_FORMAT_V1
+
+
+def with_grid_format(ds: xr.Dataset) -> xr.Dataset:
+    """A shallow copy of `ds` whose ``grid_format`` names the version its content needs (never lowered).
+
+    A grid that declares a higher version than it needs keeps its declaration.
+    """
+    needed = grid_format_version(ds)
+    declared = ds.attrs.get("grid_format")
+    try:
+        keep = int(str(declared).split()[1]) >= int(needed.split()[1]) and str(declared).startswith("ndtmap-grid ")
+    except (IndexError, ValueError):
+        keep = False
+    if keep:
+        return ds
+    out = ds.copy(deep=False)
+    out.attrs = {**ds.attrs, "grid_format": needed}
+    return out
 
 
 def validate_grid(ds: Any, *, check_values: bool = True, source: str | None = None) -> xr.Dataset:
@@ -515,12 +646,14 @@ def make_grid(
         attrs=global_attrs,
     )
     ds.attrs.setdefault("provenance", "[]")
-    ds.attrs.setdefault("grid_format", GRID_FORMAT_VERSION)
+    ds.attrs.setdefault("grid_format", grid_format_version(ds))
     return validate_grid(ds, check_values=not hasattr(data, "dask"))
 
 
-#: Version of the grid format written by this release.
-GRID_FORMAT_VERSION = "ndtmap-grid 1"
+#: The newest version of the grid format this release reads and writes.
+GRID_FORMAT_VERSION = "ndtmap-grid 2"
+#: Version 1, still written for grids that use no version-2 feature (see :func:`grid_format_version`).
+GRID_FORMAT_V1 = "ndtmap-grid 1"
 
 
 def missing_ascans(ds: xr.Dataset) -> xr.DataArray:

@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 
 from ndtmap.errors import NdtmapError
-from ndtmap.grid.geometry import depth_from_sound_path_mm, sound_path_mm
+from ndtmap.grid.geometry import depth_from_sound_path_mm, part_geometry, sound_path_mm
 from ndtmap.grid.provenance import jsonable, read_provenance
 from ndtmap.grid.schema import REQUIRED_ATTRS, count_missing_ascans, grid_attr, grid_problems
 
@@ -33,7 +33,9 @@ def grid_summary(ds: Any, *, source: str) -> dict[str, Any]:
     Returns
     -------
     dict
-        Keys ``file``, ``shape``, ``scan_mm``, ``index_mm``, ``time_us``,
+        Keys ``file``, ``shape``, ``part`` (shape of the part, beam skew
+        and path, index units: grid format 2), ``index_units``, ``scan_mm``,
+        ``index_mm`` (in ``index_units``), ``time_us``,
         ``depth_mm``, ``dtype``, ``signal``, ``attrs``, ``missing_ascans``,
         ``problems`` (list of str) and ``valid``.
     """
@@ -48,6 +50,8 @@ def grid_summary(ds: Any, *, source: str) -> dict[str, Any]:
         v = v[np.isfinite(v)]
         return [float(v.min()), float(v.max())] if v.size else None
 
+    out["part"] = _part(ds, problems)
+    out["index_units"] = out["part"]["index_units"]
     out["scan_mm"] = extent("scan")
     out["index_mm"] = extent("index")
     out["time_us"] = extent("time")
@@ -96,6 +100,34 @@ def grid_summary(ds: Any, *, source: str) -> dict[str, Any]:
     return jsonable(out)
 
 
+def _part(ds: Any, problems: list[str]) -> dict[str, Any]:
+    """Shape of the part and direction of the beam (grid format 2), read leniently from the attributes."""
+    attrs = getattr(ds, "attrs", {})
+    index = ds.coords["index"].attrs.get("units") if "index" in getattr(ds, "coords", {}) else None
+    part: dict[str, Any] = {"shape": attrs.get("part_shape", "plate"),
+                            "beam_skew_deg": grid_attr(ds, "beam_skew_deg", 0.0) if attrs else 0.0,
+                            "index_units": "deg" if index == "deg" else "mm"}
+    if part["shape"] == "cylinder" and attrs:
+        for key in ("outer_diameter_mm", "inner_diameter_mm", "scanned_surface"):
+            part[key] = grid_attr(ds, key)
+    if not problems:
+        part["beam_path"] = part_geometry(ds).beam_path
+    return part
+
+
+def _part_line(part: dict[str, Any]) -> str:
+    if part.get("shape") != "cylinder":
+        return f"plate; beam skew {part.get('beam_skew_deg', 0.0):g} deg"
+    side = "from the bore" if part.get("scanned_surface") == "inner" else "from outside"
+    bore = part.get("inner_diameter_mm")
+    bore_text = "solid" if bore == 0 else f"bore {bore:g} mm" if isinstance(bore, float) else f"bore {bore}"
+    outer = part.get("outer_diameter_mm")
+    outer_text = f"{outer:g}" if isinstance(outer, float) else str(outer)
+    path = part.get("beam_path", "unknown: the grid has problems")
+    return (f"cylinder D {outer_text} mm, {bore_text}, scanned {side}; "
+            f"beam {path} (skew {part.get('beam_skew_deg', 0.0):g} deg)")
+
+
 def format_summary(s: dict[str, Any]) -> str:
     lines = [f"Scan grid: {s['file']}"]
     shape = s.get("shape") or {}
@@ -106,9 +138,11 @@ def format_summary(s: dict[str, Any]) -> str:
         return "-" if v is None else f"{v[0]:.3f} .. {v[1]:.3f} {unit}"
 
     lines.append(f"  scan axis    {rng(s.get('scan_mm'), 'mm')}")
-    lines.append(f"  index axis   {rng(s.get('index_mm'), 'mm')}")
+    lines.append(f"  index axis   {rng(s.get('index_mm'), s.get('index_units', 'mm'))}")
     lines.append(f"  time         {rng(s.get('time_us'), 'us')}")
     lines.append(f"  depth        {rng(s.get('depth_mm'), 'mm')} (from velocity and beam angle)")
+    if "part" in s:
+        lines.append(f"  part         {_part_line(s['part'])}")
     if "dtype" in s:
         lines.append(
             f"  samples      {s['dtype']}, signal {s.get('signal')}, {'lazy' if s.get('lazy') else 'in memory'}"

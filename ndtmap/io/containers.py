@@ -25,7 +25,7 @@ from typing import Any
 import xarray as xr
 
 from ndtmap.errors import FileFormatError, ParameterError, ParameterTypeError
-from ndtmap.grid.schema import DIMS, validate_grid
+from ndtmap.grid.schema import DIMS, validate_grid, with_grid_format
 from ndtmap.io.atomic import check_target, refuse_source, write_atomically
 from ndtmap.io.attributes import check_netcdf_attrs
 from ndtmap.io.chunking import (
@@ -448,6 +448,7 @@ def save_grid(
     refuse_source(ds, path)
     check_target(path, overwrite=overwrite, is_dir=fmt == "zarr")
     lazy = is_lazy(ds)
+    ds = with_grid_format(ds)  # the version its content needs: 1 for a plain flat part, 2 for shapes and skews
     if fmt == "netcdf":
         check_netcdf_attrs(ds)
         write_atomically(path, lambda temp: _write_netcdf(ds, temp, compress=compress), is_dir=False, lazy=lazy)

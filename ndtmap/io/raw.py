@@ -22,7 +22,7 @@ import xarray as xr
 
 from ndtmap.errors import FileFormatError, GridError, ParameterError, ParameterTypeError
 from ndtmap.grid.provenance import jsonable, with_step
-from ndtmap.grid.schema import COORD_LONG_NAMES, COORD_UNITS, DIMS, GRID_FORMAT_VERSION, validate_grid
+from ndtmap.grid.schema import COORD_LONG_NAMES, COORD_UNITS, DIMS, grid_format_version, validate_grid
 from ndtmap.io.atomic import check_target, refuse_source, write_atomically
 from ndtmap.io.attributes import attr_problem
 from ndtmap.io.chunking import DASK_CHUNK_BYTES, chunk_request, want_lazy
@@ -143,8 +143,8 @@ def _raw_dataset(doc: dict[str, Any], data: Any, path: Path, order: list[str]) -
         variables["missing"] = xr.Variable(("scan", "index"), mask, attrs={"long_name": "A-scan missing"})
     attrs = dict(doc["attrs"])
     attrs.setdefault("provenance", "[]")
-    attrs.setdefault("grid_format", GRID_FORMAT_VERSION)
     ds = xr.Dataset(variables, coords=coords, attrs=attrs)
+    ds.attrs.setdefault("grid_format", grid_format_version(ds))
     step = {"sidecar": path.name, "data_file": doc["data_file"], "dtype": doc["dtype"],
             "byte_offset": int(doc.get("byte_offset", 0)), "axis_order": order}
     try:
@@ -366,6 +366,11 @@ def export_raw(
     if sidecar.suffix.lower() != SIDECAR_SUFFIX:
         raise ParameterError(f"`sidecar_path` must end in .json, got {sidecar.name!r}")
     validate_grid(ds, check_values=False)
+    if ds["index"].attrs.get("units") == "deg":
+        raise ParameterError(
+            "the raw sidecar (version 1) holds the index in mm; this grid's rotary index is in degrees: "
+            "save it as NetCDF or Zarr, or convert the index to mm of arc on the scanned surface"
+        )
     dtype = _export_dtype(ds["ascan"], dtype)
     target = RAW_DTYPES[dtype]
     data_path = sidecar.with_suffix(".bin")

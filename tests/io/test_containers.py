@@ -264,8 +264,8 @@ def test_readable_file_that_is_not_a_grid(tmp_path):
 
 
 def test_newer_grid_format_is_refused(tmp_path):
-    path = save_grid(plate().assign_attrs(grid_format="ndtmap-grid 2"), tmp_path / "KFP.nc")
-    with pytest.raises(FileFormatError, match="uses grid format version 2, newer than this ndtmap reads"):
+    path = save_grid(plate().assign_attrs(grid_format="ndtmap-grid 3"), tmp_path / "KFP.nc")
+    with pytest.raises(FileFormatError, match="uses grid format version 3, newer than this ndtmap reads"):
         open_grid(path)
 
 

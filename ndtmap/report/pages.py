@@ -271,7 +271,7 @@ def _metadata_rows(summary: Mapping[str, Any]) -> list[tuple[str, str]]:
         ("file", summary.get("file")),
         ("positions", " x ".join(f"{k} {v}" for k, v in shape.items())),
         ("scan axis", rng(summary.get("scan_mm"), "mm")),
-        ("index axis", rng(summary.get("index_mm"), "mm")),
+        ("index axis", rng(summary.get("index_mm"), summary.get("index_units", "mm"))),
         ("time", rng(summary.get("time_us"), "us")),
         ("depth range", rng(summary.get("depth_mm"), "mm")),
         ("samples", f"{summary.get('dtype')}, signal {summary.get('signal')}"),

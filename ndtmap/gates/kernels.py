@@ -72,9 +72,9 @@ def _envelope_at(rf: np.ndarray, j: np.ndarray, taps: np.ndarray) -> np.ndarray:
 def _envelope_centre(rf: np.ndarray, k: np.ndarray, lo: np.ndarray, hi: np.ndarray,
                      taps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The echo's time on the envelope as sample and offset: the envelope maximum climbed to from `k` within
-    [lo, hi], then the centroid of ``E - ENVELOPE_LEVEL E_max`` where positive around it (same steps and order of
-    sums as the compiled kernel)."""
-    reach = 2 * taps.size
+    [lo, hi] (at most ``taps.size`` steps), then the centroid of ``E - ENVELOPE_LEVEL E_max`` where positive
+    around it, within ``taps.size`` samples (same steps and order of sums as the compiled kernel)."""
+    reach = taps.size
     p = np.asarray(k, dtype=np.int64).copy()
     ep = _envelope_at(rf, p, taps)
     with np.errstate(invalid="ignore"):
@@ -148,10 +148,13 @@ def reference_gate_kernel(
         With `rectify`: the odd taps of the FIR Hilbert transformer
         (:func:`ndtmap.gates.timing.hilbert_taps`). The peak time is then the maximum of the
         envelope, climbed to from the highest rectified sample within the
-        window, with the parabola through the envelope at it and its
-        neighbours; not the vertex of the highest rectified crest. The
-        samples outside the window (up to ``2 len(hilbert_taps) - 1`` of
-        them) feed the filter; samples beyond `samples` count as 0.
+        window (at most ``len(hilbert_taps)`` samples away), and the
+        centroid of the envelope above :data:`ndtmap.gates.timing.ENVELOPE_LEVEL`
+        times that maximum (within ``len(hilbert_taps)`` samples of it);
+        not the vertex of the highest rectified crest. Only where the peak
+        reaches `threshold` (elsewhere the crest vertex, as without taps).
+        The samples outside the window (up to ``2 len(hilbert_taps) - 1``
+        of them) feed the filter; samples beyond `samples` count as 0.
 
     Returns
     -------
@@ -198,7 +201,11 @@ def reference_gate_kernel(
         delta = np.where(ok, 0.5 * (y0 - y2) / np.where(ok, denom, -1.0), 0.0)
     delta = np.clip(delta, -0.5, 0.5)
     if rf is not None and hilbert_taps is not None and len(hilbert_taps) > 0:
-        k, delta = _envelope_centre(rf, k, lo, hi, np.asarray(hilbert_taps, dtype=np.float64))
+        with np.errstate(invalid="ignore"):
+            echo = peak >= threshold  # only a detected echo is timed on its envelope
+        if echo.any():
+            p, d = _envelope_centre(rf, k, lo, hi, np.asarray(hilbert_taps, dtype=np.float64))
+            k, delta = np.where(echo, p, k), np.where(echo, d, delta)
     peak_time = t0_us + (k + delta) * dt_us
 
     # first crossing, linear interpolation between the bracketing samples

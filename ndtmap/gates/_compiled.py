@@ -224,84 +224,20 @@ if HAVE_NUMBA:
         return math.sqrt(v * v + hs * hs)
 
     @njit(cache=True, nogil=True, inline="always")
-    def _fill_signed(xk, xv, t, first, count, kind, s32, j0, j1, buf):  # pragma: no cover - compiled
-        """buf[u] = the signed value of sample first + u of row t (0 outside the slice [j0, j1)), u < count."""
-        for u in range(count):
-            j = first + u
-            buf[np.uint64(u)] = _signed(xk, xv, t, j, kind, s32) if (j >= j0 and j < j1) else 0.0
-
-    @njit(cache=True, nogil=True, inline="always")
-    def _envelope_chunk(buf, env, taps, u0):  # pragma: no cover - compiled
-        """env[u0 .. u0 + 7] from the signed samples in `buf` (sample u of the block is buf[u + 2 taps.size - 1]).
-
-        Eight independent sums, each over the taps in the order of :func:`_envelope_at`, so the results are
-        its bits while the eight chains run side by side.
-        """
-        u64 = np.uint64
-        reach = 2 * taps.size - 1
-        b = u64(u0)
-        a0 = a1 = a2 = a3 = a4 = a5 = a6 = a7 = 0.0
-        for i in range(taps.size):
-            c = taps[u64(i)]
-            lo = b + u64(reach - 2 * i - 1)
-            hi = b + u64(reach + 2 * i + 1)
-            a0 += c * (buf[lo] - buf[hi])
-            a1 += c * (buf[lo + u64(1)] - buf[hi + u64(1)])
-            a2 += c * (buf[lo + u64(2)] - buf[hi + u64(2)])
-            a3 += c * (buf[lo + u64(3)] - buf[hi + u64(3)])
-            a4 += c * (buf[lo + u64(4)] - buf[hi + u64(4)])
-            a5 += c * (buf[lo + u64(5)] - buf[hi + u64(5)])
-            a6 += c * (buf[lo + u64(6)] - buf[hi + u64(6)])
-            a7 += c * (buf[lo + u64(7)] - buf[hi + u64(7)])
-        r = b + u64(reach)
-        v = buf[r]
-        env[b] = math.sqrt(v * v + a0 * a0)
-        v = buf[r + u64(1)]
-        env[b + u64(1)] = math.sqrt(v * v + a1 * a1)
-        v = buf[r + u64(2)]
-        env[b + u64(2)] = math.sqrt(v * v + a2 * a2)
-        v = buf[r + u64(3)]
-        env[b + u64(3)] = math.sqrt(v * v + a3 * a3)
-        v = buf[r + u64(4)]
-        env[b + u64(4)] = math.sqrt(v * v + a4 * a4)
-        v = buf[r + u64(5)]
-        env[b + u64(5)] = math.sqrt(v * v + a5 * a5)
-        v = buf[r + u64(6)]
-        env[b + u64(6)] = math.sqrt(v * v + a6 * a6)
-        v = buf[r + u64(7)]
-        env[b + u64(7)] = math.sqrt(v * v + a7 * a7)
-
-    @njit(cache=True, nogil=True, inline="always")
-    def _env(xk, xv, t, j, kind, s32, taps, j0, j1, buf, env, done, ja):  # pragma: no cover - compiled
-        """The envelope of sample j: from the block of chunks of 8 samples starting at ja (a chunk is computed
-        when first asked for; `done` marks them), else sample by sample."""
-        u = j - ja
-        if u >= 0 and u < env.size:
-            c = u // 8
-            if not done[c]:
-                _envelope_chunk(buf, env, taps, c * 8)
-                done[c] = True
-            return env[np.uint64(u)]
-        return _envelope_at(xk, xv, t, j, kind, s32, taps, j0, j1)
-
-    @njit(cache=True, nogil=True, inline="always")
-    def _envelope_centre(xk, xv, t, k, lo, hi, kind, s32, taps, j0, j1, buf, env, done):  # pragma: no cover - compiled
+    def _envelope_centre(xk, xv, t, k, lo, hi, kind, s32, taps, j0, j1):  # pragma: no cover - compiled
         """The echo's time on the envelope, as sample p and offset delta (see :func:`ndtmap.gates.kernels.
         reference_gate_kernel`): climb from sample k to the envelope maximum p inside [lo, hi] (at most
         ``taps.size`` steps), then the centroid of ``E - ENVELOPE_LEVEL E(p)`` over the samples around p where
         it is positive (the echo between its -6 dB points), within [lo, hi] and ``taps.size`` samples of p;
-        the filter reads the slice [j0, j1). The envelope of the samples within ``2 taps.size`` of k (all that
-        the climb and the centroid can ask for) is computed in chunks of 8 samples as needed."""
+        the filter reads the slice [j0, j1). The envelope is computed sample by sample where needed (about
+        20 samples for an echo; computing a block of samples at once in SIMD lanes was slower)."""
         reach = taps.size
-        ja = k - 8 * ((2 * taps.size + 7) // 8)  # chunks of 8 samples covering k - 2 taps.size .. k + 2 taps.size
-        _fill_signed(xk, xv, t, ja - (2 * taps.size - 1), buf.size, kind, s32, j0, j1, buf)
-        done[:] = False
         p = k
-        ep = _env(xk, xv, t, p, kind, s32, taps, j0, j1, buf, env, done, ja)
+        ep = _envelope_at(xk, xv, t, p, kind, s32, taps, j0, j1)
         step = 0
-        if p + 1 <= hi and _env(xk, xv, t, p + 1, kind, s32, taps, j0, j1, buf, env, done, ja) > ep:
+        if p + 1 <= hi and _envelope_at(xk, xv, t, p + 1, kind, s32, taps, j0, j1) > ep:
             step = 1
-        elif p - 1 >= lo and _env(xk, xv, t, p - 1, kind, s32, taps, j0, j1, buf, env, done, ja) > ep:
+        elif p - 1 >= lo and _envelope_at(xk, xv, t, p - 1, kind, s32, taps, j0, j1) > ep:
             step = -1
         for _ in range(reach):
             if step == 0:
@@ -309,7 +245,7 @@ if HAVE_NUMBA:
             q = p + step
             if q < lo or q > hi:
                 break
-            eq = _env(xk, xv, t, q, kind, s32, taps, j0, j1, buf, env, done, ja)
+            eq = _envelope_at(xk, xv, t, q, kind, s32, taps, j0, j1)
             if not eq > ep:
                 break
             p = q
@@ -319,7 +255,7 @@ if HAVE_NUMBA:
         num = 0.0
         q = p - 1
         while q >= lo and p - q <= reach:
-            w = _env(xk, xv, t, q, kind, s32, taps, j0, j1, buf, env, done, ja) - level
+            w = _envelope_at(xk, xv, t, q, kind, s32, taps, j0, j1) - level
             if not w > 0.0:
                 break
             num += np.float64(q - p) * w
@@ -327,7 +263,7 @@ if HAVE_NUMBA:
             q -= 1
         q = p + 1
         while q <= hi and q - p <= reach:
-            w = _env(xk, xv, t, q, kind, s32, taps, j0, j1, buf, env, done, ja) - level
+            w = _envelope_at(xk, xv, t, q, kind, s32, taps, j0, j1) - level
             if not w > 0.0:
                 break
             num += np.float64(q - p) * w
@@ -444,10 +380,6 @@ if HAVE_NUMBA:
             swept = np.empty(ROWS, dtype=np.bool_)
             bits = np.empty(1, dtype=np.int32)  # to read a float32 key back as its number
             bits_f32 = bits.view(np.float32)
-            n_env = 8 * (2 * ((2 * taps.size + 7) // 8) + 1)  # the envelope block around the highest sample
-            env = np.empty(n_env)
-            done = np.zeros(n_env // 8, dtype=np.bool_)  # its chunks of 8 samples computed so far
-            buf = np.empty(n_env + 2 * max(0, 2 * taps.size - 1))  # the signed samples the filter reads for it
             h = max(1, hold)
             kt = i32(key_thr)
             line = max(1, 64 // xk.itemsize)  # samples per 64-byte cache line
@@ -534,8 +466,7 @@ if HAVE_NUMBA:
                     pk = _value(xk, xv, t, k, kind, s32)
                     delta = 0.0
                     if use_envelope and top >= kt:  # a detected echo's time: its envelope, not a crest
-                        k, delta = _envelope_centre(xk, xv, t, k, lo, hi, kind, s32, taps, base, base + length,
-                                                    buf, env, done)
+                        k, delta = _envelope_centre(xk, xv, t, k, lo, hi, kind, s32, taps, base, base + length)
                     elif k - 1 >= lo and k + 1 <= hi:
                         y0 = _value(xk, xv, t, k - 1, kind, s32)
                         y2 = _value(xk, xv, t, k + 1, kind, s32)

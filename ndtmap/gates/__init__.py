@@ -5,7 +5,9 @@
 * :mod:`ndtmap.gates.evaluate`: :func:`evaluate_gate` / :func:`evaluate_gates`
   on every A-scan of a grid (numpy or dask), windows in time;
 * :mod:`ndtmap.gates.kernels`: the measurement along the time axis, the numpy
-  reference and the compiled kernel (:mod:`ndtmap.gates._compiled`).
+  reference and the compiled kernel (:mod:`ndtmap.gates._compiled`);
+* :mod:`ndtmap.gates.timing`: echo timing on the envelope (the FIR Hilbert
+  transformer the kernels use).
 """
 
 from ndtmap.gates.evaluate import (
@@ -14,6 +16,7 @@ from ndtmap.gates.evaluate import (
     gate_time_span_us,
     gate_window_us,
     is_immersion,
+    timing_reach_samples,
 )
 from ndtmap.gates.gate import (
     DEFAULT_THRESHOLD_FSH,
@@ -41,4 +44,5 @@ __all__ = [
     "gate_window_us",
     "gate_time_span_us",
     "is_immersion",
+    "timing_reach_samples",
 ]

@@ -25,7 +25,11 @@ How the A-scans are read
     sample at or above the threshold (found the same way), the linear
     interpolation of the crossing, and the crossing echo, followed ``hold``
     samples at a time until ``hold`` samples in a row lie below the
-    threshold. While a batch is finished, the windows of the next batch
+    threshold. With Hilbert taps (RF data) the peak time is the echo's time
+    on its envelope, computed at the few samples around the highest one
+    from the signed samples of the slice (the FIR filter, the climb to the
+    envelope maximum and the centroid above half of it, summed in the
+    order of the numpy reference). While a batch is finished, the windows of the next batch
     are requested from memory (a prefetch hint), so computing and reading
     overlap.
 
@@ -53,6 +57,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
+
+from ndtmap.gates.timing import ENVELOPE_LEVEL
 
 try:  # numba is a dependency; the numpy reference kernel is the fallback should it fail to import
     from numba import njit
@@ -198,6 +204,75 @@ if HAVE_NUMBA:
         return np.float64(np.float32(key) * s32)
 
     @njit(cache=True, nogil=True, inline="always")
+    def _signed(xk, xv, t, j, kind, s32):  # pragma: no cover - compiled
+        """The signed %FSH value (float64) of sample j of row t of RF data (a rectifying kind), as recorded."""
+        if kind == KIND_F32_ABS or kind == KIND_F32:
+            return np.float64(_at(xv, t, j))
+        return np.float64(np.float32(_at(xk, t, j)) * s32)
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _envelope_at(xk, xv, t, j, kind, s32, taps, j0, j1):  # pragma: no cover - compiled
+        """|analytic signal| of sample j of row t: the Hilbert transform from the odd FIR `taps` (samples outside
+        the slice [j0, j1) count as 0), summed tap by tap in the order of the numpy reference."""
+        hs = 0.0
+        for i in range(taps.size):
+            m = 2 * i + 1
+            a = _signed(xk, xv, t, j - m, kind, s32) if j - m >= j0 else 0.0
+            b = _signed(xk, xv, t, j + m, kind, s32) if j + m < j1 else 0.0
+            hs += taps[i] * (a - b)
+        v = _signed(xk, xv, t, j, kind, s32)
+        return math.sqrt(v * v + hs * hs)
+
+    @njit(cache=True, nogil=True, inline="always")
+    def _envelope_centre(xk, xv, t, k, lo, hi, kind, s32, taps, j0, j1):  # pragma: no cover - compiled
+        """The echo's time on the envelope, as sample p and offset delta (see :func:`ndtmap.gates.kernels.
+        reference_gate_kernel`): climb from sample k to the envelope maximum p inside [lo, hi] (at most
+        ``taps.size`` steps), then the centroid of ``E - ENVELOPE_LEVEL E(p)`` over the samples around p where
+        it is positive (the echo between its -6 dB points), within [lo, hi] and ``taps.size`` samples of p;
+        the filter reads the slice [j0, j1). The envelope is computed sample by sample where needed (about
+        20 samples for an echo; computing a block of samples at once in SIMD lanes was slower)."""
+        reach = taps.size
+        p = k
+        ep = _envelope_at(xk, xv, t, p, kind, s32, taps, j0, j1)
+        step = 0
+        if p + 1 <= hi and _envelope_at(xk, xv, t, p + 1, kind, s32, taps, j0, j1) > ep:
+            step = 1
+        elif p - 1 >= lo and _envelope_at(xk, xv, t, p - 1, kind, s32, taps, j0, j1) > ep:
+            step = -1
+        for _ in range(reach):
+            if step == 0:
+                break
+            q = p + step
+            if q < lo or q > hi:
+                break
+            eq = _envelope_at(xk, xv, t, q, kind, s32, taps, j0, j1)
+            if not eq > ep:
+                break
+            p = q
+            ep = eq
+        level = ENVELOPE_LEVEL * ep
+        den = ep - level
+        num = 0.0
+        q = p - 1
+        while q >= lo and p - q <= reach:
+            w = _envelope_at(xk, xv, t, q, kind, s32, taps, j0, j1) - level
+            if not w > 0.0:
+                break
+            num += np.float64(q - p) * w
+            den += w
+            q -= 1
+        q = p + 1
+        while q <= hi and q - p <= reach:
+            w = _envelope_at(xk, xv, t, q, kind, s32, taps, j0, j1) - level
+            if not w > 0.0:
+                break
+            num += np.float64(q - p) * w
+            den += w
+            q += 1
+        delta = num / den if den > 0.0 else 0.0
+        return p, delta
+
+    @njit(cache=True, nogil=True, inline="always")
     def _sweep(xk, t, j0, kind, count):  # pragma: no cover - compiled
         """Largest key and largest magnitude bits (float kinds; the NaN check) of samples j0 .. j0 + count - 1.
 
@@ -289,12 +364,14 @@ if HAVE_NUMBA:
         """The gate kernel for one key kind (a compile-time constant, so no branch on it is left in the loops)."""
 
         @njit(cache=True, nogil=True)
-        def gate_rows(xk, xv, base, length, starts, ends, t0, dt, thr, key_thr, hold, s32, check_record,
+        def gate_rows(xk, xv, base, length, starts, ends, t0, dt, thr, key_thr, hold, s32, check_record, taps,
                       peak, peak_time, cross_time, cross_peak):  # pragma: no cover - compiled
             """Gate every row of `xk` (A-scans along the last axis) in the virtual slice [base, base + length).
 
             `starts`/`ends` are inclusive window bounds per row in sample numbers of that slice (float, NaN:
             no window), `t0` the time of sample `base`. Outputs are written into the four float64 arrays.
+            With `taps` (not empty; rectifying kinds only) the peak time is the envelope maximum near the
+            highest sample, the filter reading the slice around the window (see :func:`gate_kernel`).
             """
             i32 = np.int32
             n_rows = xk.shape[0]
@@ -307,6 +384,7 @@ if HAVE_NUMBA:
             kt = i32(key_thr)
             line = max(1, 64 // xk.itemsize)  # samples per 64-byte cache line
             nan = np.nan
+            use_envelope = taps.size > 0 and (kind == KIND_INT_ABS or kind == KIND_I16_ABS or kind == KIND_F32_ABS)
             for first_row in range(0, n_rows, ROWS):
                 end_row = min(first_row + ROWS, n_rows)
                 # phase 1, a tight streaming loop over a batch of A-scans: the largest key of every block.
@@ -387,7 +465,9 @@ if HAVE_NUMBA:
                         k = _find(xk, t, min(lo + b * BLOCK, last), seglen, kind, top, False)
                     pk = _value(xk, xv, t, k, kind, s32)
                     delta = 0.0
-                    if k - 1 >= lo and k + 1 <= hi:
+                    if use_envelope and top >= kt:  # a detected echo's time: its envelope, not a crest
+                        k, delta = _envelope_centre(xk, xv, t, k, lo, hi, kind, s32, taps, base, base + length)
+                    elif k - 1 >= lo and k + 1 <= hi:
                         y0 = _value(xk, xv, t, k - 1, kind, s32)
                         y2 = _value(xk, xv, t, k + 1, kind, s32)
                         denom = y0 - 2.0 * pk + y2
@@ -480,6 +560,7 @@ def gate_kernel(
     rectify: bool = False,
     check_record: bool = False,
     threads: int = 1,
+    hilbert_taps: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """All outputs of one gate from the recorded samples, in one read of the window.
 
@@ -490,7 +571,10 @@ def gate_kernel(
     sample `base`; the samples outside that slice are never read, except
     with `check_record`, which also makes every output NaN for an A-scan
     with a NaN or infinite sample anywhere on the last axis (a missing
-    A-scan).
+    A-scan). With `hilbert_taps`, the filter reads up to
+    ``2 len(hilbert_taps) - 1`` samples on either side of the samples whose
+    envelope it computes, within the slice (samples beyond it count as 0):
+    give a slice that reaches that far beyond the windows.
 
     Parameters
     ----------
@@ -514,6 +598,12 @@ def gate_kernel(
         Split the A-scans over this many threads (the kernel releases the
         GIL) when there are at least :data:`THREAD_MIN_BYTES` of samples;
         1 inside dask tasks, which are parallel already.
+    hilbert_taps : ndarray, optional
+        With `rectify` (RF data): the odd taps of the FIR Hilbert
+        transformer (:func:`ndtmap.gates.kernels.hilbert_taps`); the peak
+        time is then the envelope maximum near the highest sample, with the
+        parabola through the envelope (as the reference kernel with the
+        same taps computes it). Ignored without `rectify`.
 
     Returns
     -------
@@ -554,6 +644,7 @@ def gate_kernel(
     key_thr = int(min(max(threshold_key(threshold, kind, scale), -(2**31)), 2**31 - 1))
     s32 = np.float32(scale)
     dummy = np.zeros((1, 1), dtype=np.float32)
+    taps = np.zeros(0) if hilbert_taps is None or not rectify else np.ascontiguousarray(hilbert_taps, dtype=np.float64)
 
     def run(job: tuple[int, int]) -> None:
         r0, r1 = job
@@ -563,7 +654,7 @@ def gate_kernel(
         else:
             xk, xv = block, dummy
         gate_rows(xk, xv, kind, int(base), int(length), starts[r0:r1], ends[r0:r1], float(t0_us), float(dt_us),
-                  float(threshold), key_thr, int(hold), s32, bool(check_record), *(o[r0:r1] for o in outs))
+                  float(threshold), key_thr, int(hold), s32, bool(check_record), taps, *(o[r0:r1] for o in outs))
 
     if n_threads > 1 and len(jobs) > 1:
         from concurrent.futures import ThreadPoolExecutor

@@ -23,10 +23,20 @@ Windows
     gives missing values.
 
 Modes
-    ``'peak'``: the highest sample in the window. Amplitude = its value; the
-    event time is the vertex of the parabola through it and its two
-    neighbours (when both lie in the window; else the sample time).
-    Triggered when amplitude >= threshold.
+    ``'peak'``: the highest sample in the window. Amplitude = its value.
+    The event time, on RF grids gated on the rectified signal, is the time
+    of the echo's envelope, not of the highest carrier crest: the envelope
+    (the modulus of the analytic signal, its Hilbert transform from a FIR
+    filter four carrier periods long on either side, reading the record
+    around the window) is climbed from the highest sample to its maximum,
+    and the event is the centroid of the envelope above half that maximum
+    (the echo between its -6 dB points), sub-sample. A crest is off the
+    echo's time by up to a quarter period, and two crests of near-equal
+    height make the timing jump by half a period between neighbouring
+    A-scans. On rectified grids (no phase left) and with
+    ``detect='envelope'`` the time is the vertex of the parabola through
+    the highest sample and its two neighbours (when both lie in the window;
+    else the sample time). Triggered when amplitude >= threshold.
     ``'first-crossing'`` (flank): the first sample at or above the threshold.
     The event time is interpolated linearly between it and the sample
     before (if the signal is already above the threshold when the gate
@@ -36,6 +46,9 @@ Modes
     threshold for one probe period (``echo_hold_us``; this bridges the
     zero crossings of an RF echo) or at the end of the window. Triggered
     when a crossing exists; otherwise the amplitude is the window maximum.
+    The crossing is that of the rectified signal (a crest that reaches the
+    threshold), so its time still depends on the carrier phase by up to
+    half a period; use 'peak' for depths and thicknesses.
 
 Depth of the event
     Normally from pulse entry: ``s = c (t - zero_offset) / 2``. For a gate
@@ -107,9 +120,10 @@ from ndtmap.gates.kernels import (
     gate_outputs_compiled,
     threads_for,
 )
+from ndtmap.gates.timing import hilbert_taps
 from ndtmap.grid.geometry import part_constants
 from ndtmap.grid.provenance import with_step
-from ndtmap.grid.schema import check_grid, grid_attr, missing_ascans
+from ndtmap.grid.schema import ascan_in_fsh, check_grid, grid_attr, missing_ascans
 from ndtmap.signal import (
     CLIP_RTOL,
     DETECTIONS,
@@ -126,6 +140,7 @@ __all__ = [
     "gate_window_us",
     "gate_time_span_us",
     "is_immersion",
+    "timing_reach_samples",
 ]
 
 _EPS = 1e-6  # fraction of a sample: tolerance of window edges against sample times
@@ -196,6 +211,8 @@ class _Evaluator:
             echo_hold_us = 1.0 / f
         self.echo_hold_us = positive_float("echo_hold_us", echo_hold_us)
         self.hold = max(1, int(round(self.echo_hold_us / self.pc.dt_us)))
+        self.taps = _envelope_taps(grid, self.detect, self.pc.dt_us)
+        self.reach = 0 if self.taps is None else 2 * self.taps.size - 1  # samples the envelope filter reads
         self._signal: xr.DataArray | None = None
         self._missing: xr.DataArray | None = None
         self._memo: dict[str, _Raw] = {}
@@ -204,8 +221,14 @@ class _Evaluator:
 
     @property
     def signal(self) -> xr.DataArray:
+        """What the numpy kernel reads: the detection signal, or the RF samples when it times on the envelope."""
         if self._signal is None:
-            self._signal = detected_signal(self.grid, self.detect)
+            if self.taps is None:
+                self._signal = detected_signal(self.grid, self.detect)
+            else:
+                rf = ascan_in_fsh(self.grid).copy(deep=False)
+                rf.attrs = {"units": "%FSH", "long_name": f"A-scan amplitude ({self.detect})"}  # as detected_signal
+                self._signal = rf
         return self._signal
 
     @property
@@ -252,7 +275,12 @@ class _Evaluator:
         a = a.copy(deep=False)
         a.attrs = {"units": "%FSH", "long_name": f"A-scan amplitude ({self.detect})"}  # as detected_signal
         a = whole_time(a)
-        return a, {"scale": scale, "rectify": rectify, "check_record": not integer, "threads": threads_for(a)}
+        return a, {"scale": scale, "rectify": rectify, "check_record": not integer, "threads": threads_for(a),
+                   "hilbert_taps": self.taps}
+
+    def _numpy_timing(self) -> dict[str, Any]:
+        """The numpy kernel's arguments for envelope timing (none when it reads the detection signal)."""
+        return {} if self.taps is None else {"rectify": True, "hilbert_taps": self.taps}
 
     def infinite_in(self, data: xr.DataArray, first: int, last: int) -> xr.DataArray:
         """True where an A-scan of `data` holds an infinite sample between samples `first` and `last`.
@@ -342,15 +370,17 @@ class _Evaluator:
         """The kernel's four outputs over the gate's window, on the detection signal or on 100 A/DAC (`ratio`)."""
         dt = self.pc.dt_us
         kwargs: dict[str, Any] = {"dt_us": dt, "threshold": threshold, "hold": self.hold}
+        reach = 0 if ratio else self.reach  # the envelope filter's reach beyond the window (RF timing only)
         outside = w_start = w_end = None
         if gate.follows is None:
             a, b = self.window_us(gate)
             i0 = int(max(0, self._sample(a, np.ceil)))
             i1 = int(min(self.n - 1, self._sample(b, np.floor)))
-            kwargs["t0_us"] = self.t_first + i0 * dt
+            m0, m1 = max(0, i0 - reach), min(self.n - 1, i1 + reach)  # the slice the kernel reads
+            kwargs["t0_us"] = self.t_first + m0 * dt
             if self.kernel == "compiled":
                 data, conversion = self._compiled_input(ratio)
-                kwargs.update(conversion, base=i0, length=i1 - i0 + 1, start=0.0, end=float(i1 - i0))
+                kwargs.update(conversion, base=m0, length=m1 - m0 + 1, start=float(i0 - m0), end=float(i1 - m0))
                 if conversion["check_record"]:
                     self._infinite[gate.name] = self.infinite_in(data, i0, i1)
                 outs = xr.apply_ufunc(
@@ -358,16 +388,17 @@ class _Evaluator:
                     kwargs=kwargs, dask="allowed",
                 )
             else:
-                sig = whole_time((self.ratio_signal if ratio else self.signal).isel(time=slice(i0, i1 + 1)))
+                sig = whole_time((self.ratio_signal if ratio else self.signal).isel(time=slice(m0, m1 + 1)))
+                kwargs.update({} if ratio else self._numpy_timing(), i_start=float(i0 - m0), i_end=float(i1 - m0))
                 outs = xr.apply_ufunc(
                     gate_kernel_blocked, sig, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
                     kwargs=kwargs, dask="parallelized", output_dtypes=[np.float64] * 4,
                 )
-            return outs, (a, b), None, None, None, i0
+            return outs, (a, b), None, None, None, m0
         a, b = self.relative_us(gate)
         lo, hi = self.bounds(gate.name)
-        k0 = int(max(0, math.floor((lo - self.t_first) / dt) - 1))
-        k1 = int(min(self.n - 1, math.ceil((hi - self.t_first) / dt) + 1))
+        k0 = int(max(0, math.floor((lo - self.t_first) / dt) - 1 - reach))
+        k1 = int(min(self.n - 1, math.ceil((hi - self.t_first) / dt) + 1 + reach))
         ref = self.evaluate(gate.follows).time
         w_start, w_end = ref + a, ref + b
         f0 = self._sample(w_start, np.ceil)
@@ -387,6 +418,7 @@ class _Evaluator:
             )
         else:
             sig = whole_time((self.ratio_signal if ratio else self.signal).isel(time=slice(k0, k1 + 1)))
+            kwargs.update({} if ratio else self._numpy_timing())
             outs = xr.apply_ufunc(
                 gate_kernel_windows, sig, i0, i1, input_core_dims=[["time"], [], []],
                 output_core_dims=[[], [], [], []], kwargs=kwargs, dask="parallelized",
@@ -562,6 +594,30 @@ class _Evaluator:
         }
         params.update({k: v for k, v in extra.items() if k in ("reference_fsh", "dac")})
         return with_step(ds, "gate", params, source=self.grid)
+
+
+def _envelope_taps(grid: xr.Dataset, detect: str, dt_us: float) -> np.ndarray | None:
+    """The FIR Hilbert taps that time peak events on the envelope: RF grids gated on the rectified signal only."""
+    if detect != "rectified" or str(grid["ascan"].attrs.get("signal", "rf")) != "rf":
+        return None
+    f = positive_float("probe_frequency_mhz", grid_attr(grid, "probe_frequency_mhz"))
+    return hilbert_taps(1.0 / (f * dt_us))
+
+
+def timing_reach_samples(grid: xr.Dataset, detect: str = "rectified") -> int:
+    """Samples beyond a gate window that the event timing reads on either side (the envelope filter's reach).
+
+    0 where the timing reads only the window (rectified grids, ``detect='envelope'``).
+
+    Examples
+    --------
+    >>> from ndtmap.grid.examples import example_grid
+    >>> timing_reach_samples(example_grid())   # 4 periods of 5 MHz at 50 MHz sampling, odd
+    41
+    """
+    grid = check_grid(grid)
+    taps = _envelope_taps(grid, one_of("detect", detect, DETECTIONS[:2]), part_constants(grid).dt_us)
+    return 0 if taps is None else 2 * taps.size - 1
 
 
 def evaluate_gate(

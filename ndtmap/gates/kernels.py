@@ -1,8 +1,13 @@
 """The gate measurement kernels along the last (time) axis: the numpy reference and the compiled one.
 
 One pass over the gated samples of each A-scan gives four numbers: the highest
-sample in the window and the time of its parabola vertex, the first threshold
-crossing (linearly interpolated) and the peak of the echo that crosses.
+sample in the window and its time, the first threshold crossing (linearly
+interpolated) and the peak of the echo that crosses. The time of the highest
+sample is the vertex of the parabola through it and its neighbours or, for RF
+samples given with the taps of a FIR Hilbert transformer (:func:`ndtmap.gates.timing.hilbert_taps`),
+the time of the echo on its envelope: the envelope maximum climbed to from the
+highest sample, then the centroid of the envelope above
+:data:`ndtmap.gates.timing.ENVELOPE_LEVEL` times that maximum (the -6 dB points).
 :func:`reference_gate_kernel` is the numpy reference, written for clarity and
 checked against exact sub-sample formulas; the default compiled kernel
 (:mod:`ndtmap.gates._compiled`, numba) reads the recorded samples (int16
@@ -23,6 +28,7 @@ import xarray as xr
 from ndtmap._shared.arrays import is_lazy
 from ndtmap._shared.validate import one_of
 from ndtmap.errors import ParameterError
+from ndtmap.gates.timing import ENVELOPE_LEVEL
 
 __all__ = [
     "GATE_KERNELS",
@@ -47,6 +53,66 @@ def _take(x: np.ndarray, k: np.ndarray) -> np.ndarray:
     return np.take_along_axis(x, k[..., None], axis=-1)[..., 0]
 
 
+def _envelope_at(rf: np.ndarray, j: np.ndarray, taps: np.ndarray) -> np.ndarray:
+    """|analytic signal| at sample `j` (one per A-scan) from the FIR Hilbert taps; samples outside the record are 0.
+
+    Summed tap by tap in the order of the compiled kernel, so both give the same bits.
+    """
+    n = rf.shape[-1]
+    hs = np.zeros(j.shape)
+    for i in range(taps.size):
+        m = 2 * i + 1
+        a = np.where(j - m >= 0, _take(rf, np.clip(j - m, 0, n - 1)), 0.0)
+        b = np.where(j + m < n, _take(rf, np.clip(j + m, 0, n - 1)), 0.0)
+        hs = hs + taps[i] * (a - b)
+    v = _take(rf, np.clip(j, 0, n - 1))
+    return np.sqrt(v * v + hs * hs)
+
+
+def _envelope_centre(rf: np.ndarray, k: np.ndarray, lo: np.ndarray, hi: np.ndarray,
+                     taps: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The echo's time on the envelope as sample and offset: the envelope maximum climbed to from `k` within
+    [lo, hi] (at most ``taps.size`` steps), then the centroid of ``E - ENVELOPE_LEVEL E_max`` where positive
+    around it, within ``taps.size`` samples (same steps and order of sums as the compiled kernel)."""
+    reach = taps.size
+    p = np.asarray(k, dtype=np.int64).copy()
+    ep = _envelope_at(rf, p, taps)
+    with np.errstate(invalid="ignore"):
+        up = (p + 1 <= hi) & (_envelope_at(rf, p + 1, taps) > ep)
+        down = ~up & (p - 1 >= lo) & (_envelope_at(rf, p - 1, taps) > ep)
+    step = np.where(up, 1, np.where(down, -1, 0))
+    active = step != 0
+    for _ in range(reach):
+        if not active.any():
+            break
+        q = p + step
+        eq = _envelope_at(rf, q, taps)
+        with np.errstate(invalid="ignore"):
+            move = active & (q >= lo) & (q <= hi) & (eq > ep)
+        p = np.where(move, q, p)
+        ep = np.where(move, eq, ep)
+        active = move
+    level = ENVELOPE_LEVEL * ep
+    den = ep - level
+    num = np.zeros(p.shape)
+    for side in (-1, 1):
+        active = np.ones(p.shape, dtype=bool)
+        for d in range(1, reach + 1):
+            q = p + side * d
+            active &= (q >= lo) & (q <= hi)
+            if not active.any():
+                break
+            w = _envelope_at(rf, q, taps) - level
+            with np.errstate(invalid="ignore"):
+                active &= w > 0.0
+            num = np.where(active, num + float(side * d) * w, num)
+            den = np.where(active, den + w, den)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ok = den > 0.0
+        delta = np.where(ok, num / np.where(ok, den, 1.0), 0.0)
+    return p, delta
+
+
 def reference_gate_kernel(
     samples: np.ndarray,
     t0_us: float,
@@ -55,6 +121,9 @@ def reference_gate_kernel(
     hold: int,
     i_start: np.ndarray | None = None,
     i_end: np.ndarray | None = None,
+    *,
+    rectify: bool = False,
+    hilbert_taps: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """All measurements of one gate in one pass over the window, along the last axis.
 
@@ -62,6 +131,8 @@ def reference_gate_kernel(
     ----------
     samples : ndarray (..., n)
         Detection signal (>= 0), %FSH; sample ``j`` is at ``t0_us + j dt_us``.
+        With `rectify`: the RF samples (signed), whose ``abs`` is the
+        detection signal.
     t0_us, dt_us : float
         Time of the first sample and the sampling interval.
     threshold : float
@@ -71,16 +142,33 @@ def reference_gate_kernel(
     i_start, i_end : ndarray (...), optional
         Inclusive window per A-scan as sample numbers (float, NaN: no
         window); default the whole last axis.
+    rectify : bool, default False
+        `samples` are RF: the detection signal is their absolute value.
+    hilbert_taps : ndarray, optional
+        With `rectify`: the odd taps of the FIR Hilbert transformer
+        (:func:`ndtmap.gates.timing.hilbert_taps`). The peak time is then the maximum of the
+        envelope, climbed to from the highest rectified sample within the
+        window (at most ``len(hilbert_taps)`` samples away), and the
+        centroid of the envelope above :data:`ndtmap.gates.timing.ENVELOPE_LEVEL`
+        times that maximum (within ``len(hilbert_taps)`` samples of it);
+        not the vertex of the highest rectified crest. Only where the peak
+        reaches `threshold` (elsewhere the crest vertex, as without taps).
+        The samples outside the window (up to ``2 len(hilbert_taps) - 1``
+        of them) feed the filter; samples beyond `samples` count as 0.
 
     Returns
     -------
     peak, peak_time, cross_time, cross_peak : ndarray (...)
-        Highest value in the window, its parabola-vertex time, the first
+        Highest value in the window, its parabola-vertex time (or the
+        envelope's, with `hilbert_taps`), the first
         threshold crossing time (NaN if none) and the highest value of the
         crossing echo (NaN if none). All NaN where the window is invalid or
         holds a NaN sample.
     """
     x = np.asarray(samples, dtype=np.float64)
+    rf = x if rectify else None
+    if rectify:
+        x = np.abs(x)
     lead, n = x.shape[:-1], x.shape[-1]
     if n == 0 or x.size == 0:
         empty = np.full(lead, np.nan)
@@ -112,6 +200,12 @@ def reference_gate_kernel(
         ok = (k - 1 >= lo) & (k + 1 <= hi) & (denom < 0)
         delta = np.where(ok, 0.5 * (y0 - y2) / np.where(ok, denom, -1.0), 0.0)
     delta = np.clip(delta, -0.5, 0.5)
+    if rf is not None and hilbert_taps is not None and len(hilbert_taps) > 0:
+        with np.errstate(invalid="ignore"):
+            echo = peak >= threshold  # only a detected echo is timed on its envelope
+        if echo.any():
+            p, d = _envelope_centre(rf, k, lo, hi, np.asarray(hilbert_taps, dtype=np.float64))
+            k, delta = np.where(echo, p, k), np.where(echo, d, delta)
     peak_time = t0_us + (k + delta) * dt_us
 
     # first crossing, linear interpolation between the bracketing samples

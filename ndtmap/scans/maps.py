@@ -256,7 +256,9 @@ def thickness_map(
       interface echo and `backwall_gate` the back-wall echo (immersion).
 
     Use the same mode for both gates ('peak' gives the most stable timing of
-    echoes of different heights). Positions where either gate did not
+    echoes of different heights: on RF grids each echo is timed on its
+    envelope, so a carrier phase that differs between the two echoes does
+    not enter; see :mod:`ndtmap.gates.evaluate`). Positions where either gate did not
     trigger, or where the back-wall event is not later than the reference
     event, are NaN.
 

@@ -6,7 +6,9 @@ The crop
     follows), so the workbench evaluates gates on the grid cut to the time
     span that the gate chain can reach (from
     :func:`ndtmap.gates.gate_time_span_us`, which also checks the windows
-    against the full record), plus two samples each side. The missing-A-scan
+    against the full record), plus two samples each side and, on RF grids, the
+    reach of the envelope filter that times the events
+    (:func:`ndtmap.gates.timing_reach_samples`). The missing-A-scan
     mask of the full grid is carried into the cut grid as its ``missing``
     variable, so an A-scan with a NaN outside the window stays missing. The
     results equal those on the whole grid up to rounding of the sampling
@@ -31,7 +33,7 @@ import numpy as np
 import xarray as xr
 
 from ndtmap._shared.arrays import is_lazy
-from ndtmap.gates import KERNEL_ENV, Gate, gate_time_span_us
+from ndtmap.gates import KERNEL_ENV, Gate, gate_time_span_us, timing_reach_samples
 
 #: A function told the fraction of work done (0..1, or None when unknown) and what is being done.
 Progress = Callable[[float | None, str], None]
@@ -73,8 +75,9 @@ def crop_to_chain(grid: xr.Dataset, chain: list[Gate], detect: str, missing: xr.
     lo, hi = chain_bounds_us(grid, chain, detect)
     t = np.asarray(grid["time"].values, dtype=np.float64)
     dt = (t[-1] - t[0]) / (t.size - 1)
-    k0 = max(0, int(math.floor((lo - t[0]) / dt)) - CROP_MARGIN_SAMPLES)
-    k1 = min(t.size - 1, int(math.ceil((hi - t[0]) / dt)) + CROP_MARGIN_SAMPLES)
+    margin = CROP_MARGIN_SAMPLES + timing_reach_samples(grid, detect)
+    k0 = max(0, int(math.floor((lo - t[0]) / dt)) - margin)
+    k1 = min(t.size - 1, int(math.ceil((hi - t[0]) / dt)) + margin)
     if k1 - k0 < 2:
         k1 = min(t.size - 1, k0 + 2)
         k0 = max(0, k1 - 2)

@@ -92,8 +92,9 @@ def _envelope_centre(rf: np.ndarray, k: np.ndarray, lo: np.ndarray, hi: np.ndarr
         p = np.where(move, q, p)
         ep = np.where(move, eq, ep)
         active = move
-    level = ENVELOPE_LEVEL * ep
-    den = ep - level
+    with np.errstate(invalid="ignore"):  # an infinite sample (a missing A-scan) gives inf - inf here
+        level = ENVELOPE_LEVEL * ep
+        den = ep - level
     num = np.zeros(p.shape)
     for side in (-1, 1):
         active = np.ones(p.shape, dtype=bool)
@@ -102,8 +103,8 @@ def _envelope_centre(rf: np.ndarray, k: np.ndarray, lo: np.ndarray, hi: np.ndarr
             active &= (q >= lo) & (q <= hi)
             if not active.any():
                 break
-            w = _envelope_at(rf, q, taps) - level
             with np.errstate(invalid="ignore"):
+                w = _envelope_at(rf, q, taps) - level
                 active &= w > 0.0
             num = np.where(active, num + float(side * d) * w, num)
             den = np.where(active, den + w, den)

@@ -129,12 +129,17 @@ def figure_bytes(
     w = width or fig.layout.width or DEFAULT_WIDTH
     h = height or fig.layout.height or DEFAULT_HEIGHT
     s = scale if scale is not None else (PNG_SCALE if fmt == "png" else 1)
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # plotly warns that kaleido options are ignored in a server
-            data = fig.to_image(format=fmt, width=int(w), height=int(h), scale=s)
-    except Exception as exc:  # noqa: BLE001 - kaleido raises many kinds; report one clear line
-        raise FileFormatError(f"static export to {fmt.upper()} failed: {type(exc).__name__}: {exc}") from None
+    data = None
+    for attempt in (1, 2):  # the browser behind kaleido can fail once on a loaded machine: one more try
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # plotly warns that kaleido options are ignored in a server
+                data = fig.to_image(format=fmt, width=int(w), height=int(h), scale=s)
+            break
+        except Exception as exc:  # noqa: BLE001 - kaleido raises many kinds; report one clear line
+            if attempt == 2:
+                raise FileFormatError(
+                    f"static export to {fmt.upper()} failed twice: {type(exc).__name__}: {exc}") from None
     if fmt == "svg":
         return stable_svg(data)
     return stable_pdf(data) if fmt == "pdf" else data

@@ -27,15 +27,15 @@ def _procedure(args: argparse.Namespace) -> Any:
     from ndtmap.procedure import load_procedure, procedure_from_options  # imported on use
     from ndtmap.signal import DacCurve
 
-    level_options = (args.gate_mm, args.threshold_fsh, args.threshold_db, args.dac, args.dgs_fbh_mm)
+    level_options = (args.gate_mm, args.gate_us, args.threshold_fsh, args.threshold_db, args.dac, args.dgs_fbh_mm)
     if args.procedure is not None:
         if any(v is not None for v in level_options):
             raise NdtmapError("give either --procedure or --gate-mm with its level (--threshold-fsh, or --threshold-db "
                               "with --dac/--dgs-fbh-mm), not both")
         return load_procedure(args.procedure)
-    if args.gate_mm is None or (args.threshold_fsh is None) == (args.threshold_db is None):
-        raise NdtmapError("--gate-mm START END and one of --threshold-fsh PCT or --threshold-db DB (with --dac FILE "
-                          "or --dgs-fbh-mm D) are required (or --procedure FILE)")
+    if (args.gate_mm is None) == (args.gate_us is None) or (args.threshold_fsh is None) == (args.threshold_db is None):
+        raise NdtmapError("--gate-mm START END or --gate-us START END (one of them) and one of --threshold-fsh PCT or "
+                          "--threshold-db DB (with --dac FILE or --dgs-fbh-mm D) are required (or --procedure FILE)")
     if args.dgs_fbh_mm is not None and args.backwall_gate_mm is None:
         raise NdtmapError("--dgs-fbh-mm sets the gain from the back-wall echo: give --backwall-gate-mm START END too")
     dac = None if args.dac is None else DacCurve.from_csv(args.dac, outside=args.dac_outside)
@@ -44,6 +44,7 @@ def _procedure(args: argparse.Namespace) -> Any:
         dac=dac,
         dgs_fbh_mm=args.dgs_fbh_mm,
         gate_mm=args.gate_mm,
+        gate_us=args.gate_us,
         threshold_fsh=args.threshold_fsh,
         mode=args.mode,
         backwall_gate_mm=args.backwall_gate_mm,
@@ -97,6 +98,8 @@ def register(subparsers: Any) -> None:
     p = subparsers.add_parser("indications", help="detect and size indications, print a table")
     p.add_argument("path", type=Path, help="grid file")
     p.add_argument("--gate-mm", nargs=2, type=float, metavar=("START", "END"), help="flaw gate, depth mm")
+    p.add_argument("--gate-us", nargs=2, type=float, metavar=("START", "END"),
+                   help="flaw gate in time from pulse entry, us (instead of --gate-mm)")
     p.add_argument("--threshold-fsh", type=float, metavar="PCT", help="detection threshold, %%FSH")
     p.add_argument(
         "--backwall-gate-mm",

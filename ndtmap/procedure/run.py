@@ -294,7 +294,8 @@ def run_procedure(grid: xr.Dataset, procedure: Procedure, *, source: str | None 
 
 def procedure_from_options(
     *,
-    gate_mm: Iterable[float],
+    gate_mm: Iterable[float] | None = None,
+    gate_us: Iterable[float] | None = None,
     threshold_fsh: float | None = None,
     mode: str = "peak",
     backwall_gate_mm: Iterable[float] | None = None,
@@ -305,7 +306,11 @@ def procedure_from_options(
     dac: DacCurve | None = None,
     dgs_fbh_mm: float | None = None,
 ) -> Procedure:
-    """The procedure behind ``ndtmap indications``'s options (a flaw gate in depth mm, an optional back-wall gate).
+    """The procedure behind ``ndtmap indications``'s options (a flaw gate, an optional back-wall gate).
+
+    The flaw gate is given in depth, `gate_mm`, or in time from pulse entry,
+    `gate_us` (unambiguous where a depth window would cover several legs of
+    an angle beam); exactly one of the two.
 
     The detection level is `threshold_fsh` (%FSH) or `threshold_db`, in dB
     re the recording curve: the DAC `dac`, or the DGS curve of an
@@ -334,11 +339,16 @@ def procedure_from_options(
     if threshold_db is not None and recording is None:
         raise ParameterError("`threshold_db` is a level in dB re the recording curve: give a DAC (`dac`, the "
                              "command line's --dac FILE) or a DGS level (`dgs_fbh_mm`, --dgs-fbh-mm)")
-    start, end = gate_mm
+    if (gate_mm is None) == (gate_us is None):
+        raise ParameterError(f"give exactly one of `gate_mm` (depth) and `gate_us` (time from pulse entry), got "
+                             f"gate_mm={gate_mm!r}, gate_us={gate_us!r}")
+    start, end = gate_mm if gate_mm is not None else gate_us
+    unit = "mm" if gate_mm is not None else "us"
     if threshold_db is not None:
-        flaw = Gate("flaw", float(start), float(end), threshold_db=float(threshold_db), reference="dac", mode=mode)
+        flaw = Gate("flaw", float(start), float(end), unit=unit, threshold_db=float(threshold_db), reference="dac",
+                    mode=mode)
     else:
-        flaw = Gate("flaw", float(start), float(end), threshold_fsh=float(threshold_fsh), mode=mode)
+        flaw = Gate("flaw", float(start), float(end), unit=unit, threshold_fsh=float(threshold_fsh), mode=mode)
     gates = [flaw]
     if backwall_gate_mm is not None:
         b0, b1 = backwall_gate_mm

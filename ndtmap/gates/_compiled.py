@@ -419,7 +419,7 @@ if HAVE_NUMBA:
                         bmax[r, 0] = m
                         mag = a
                     if kind == KIND_F32_ABS or kind == KIND_F32:
-                        if mag > _NONFINITE:  # NaN in the window
+                        if mag >= _NONFINITE:  # NaN or infinity in the window: a missing A-scan
                             continue
                         if check:
                             outside = i32(max(outside, _magnitude(xk, t, hi + 1, xk.shape[1])))

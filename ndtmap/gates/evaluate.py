@@ -216,7 +216,6 @@ class _Evaluator:
         self._signal: xr.DataArray | None = None
         self._missing: xr.DataArray | None = None
         self._memo: dict[str, _Raw] = {}
-        self._infinite: dict[str, xr.DataArray] = {}
         self._bounds: dict[str, tuple[float, float]] = {}
 
     @property
@@ -281,17 +280,6 @@ class _Evaluator:
     def _numpy_timing(self) -> dict[str, Any]:
         """The numpy kernel's arguments for envelope timing (none when it reads the detection signal)."""
         return {} if self.taps is None else {"rectify": True, "hilbert_taps": self.taps}
-
-    def infinite_in(self, data: xr.DataArray, first: int, last: int) -> xr.DataArray:
-        """True where an A-scan of `data` holds an infinite sample between samples `first` and `last`.
-
-        Such an A-scan is missing (:func:`ndtmap.grid.schema.missing_ascans`:
-        a NaN or infinite sample anywhere), like a NaN one. The compiled
-        kernel finds NaN anywhere and infinities outside the window itself;
-        this check of the samples it reads as the window makes the rule hold
-        whatever the kernel does with an infinity there.
-        """
-        return np.isinf(data.isel(time=slice(first, last + 1))).any("time")
 
     def check_curve_range(self, gate: Gate) -> None:
         """Refuse a window that leaves the recorded depths of a curve whose rule is 'refuse'."""
@@ -381,8 +369,6 @@ class _Evaluator:
             if self.kernel == "compiled":
                 data, conversion = self._compiled_input(ratio)
                 kwargs.update(conversion, base=m0, length=m1 - m0 + 1, start=float(i0 - m0), end=float(i1 - m0))
-                if conversion["check_record"]:
-                    self._infinite[gate.name] = self.infinite_in(data, i0, i1)
                 outs = xr.apply_ufunc(
                     gate_outputs_compiled, data, input_core_dims=[["time"]], output_core_dims=[[], [], [], []],
                     kwargs=kwargs, dask="allowed",
@@ -410,8 +396,6 @@ class _Evaluator:
         if self.kernel == "compiled":
             data, conversion = self._compiled_input(ratio)
             kwargs.update(conversion, base=k0, length=k1 - k0 + 1)
-            if conversion["check_record"]:
-                self._infinite[gate.name] = self.infinite_in(data, k0, k1)
             outs = xr.apply_ufunc(
                 gate_outputs_compiled, data, i0, i1, input_core_dims=[["time"], [], []],
                 output_core_dims=[[], [], [], []], kwargs=kwargs, dask="allowed",
@@ -465,9 +449,6 @@ class _Evaluator:
             level = self.curve.level_fsh(self.pc.depth_mm(event))
             amp = ratio / 100.0 * level
         ok = self.ok_mask(on_curve)
-        infinite = self._infinite.get(name)  # compiled float data: an infinite sample in the window read
-        if infinite is not None:
-            ok = ~infinite if ok is None else ok & ~infinite
         if ok is not None:
             amp = amp.where(ok)
             trig = trig & ok

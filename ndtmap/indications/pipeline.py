@@ -283,12 +283,12 @@ def size_indications(
                                                curve=echoes.curve if re_curve else None)
         inds = inds + new
     bw = backwall_reference(amp, backwall, backwall_depth_mm, exclude=inds, attrs=attrs)
-    loss_map, loss_inds, shadow = _backwall_loss_step(amp, inds, loss, bw, depth_map, detection)
-    # the loss map before the loss under flaw echoes was merged into them: for the loss boundary of a flaw
-    loss_whole = None if loss is None or loss.threshold_db is None else loss_map_db(amp, loss, bw)
+    loss_whole, loss_map, loss_inds, shadow = _backwall_loss_step(amp, inds, loss, bw, depth_map, detection)
     records = _amplitude_records(amp, inds, attrs=attrs, sizing=sizing, flag_options=flag_options, bw=bw,
                                  dgs_inputs=dgs_inputs, others=list(other_indications), echoes=echoes, shadow=shadow,
-                                 layers=layers, loss=None if loss_whole is None else (loss_whole, loss.threshold_db))
+                                 layers=layers,
+                                 loss=None if loss is None or loss_whole is None or loss.threshold_db is None
+                                 else (loss_whole, loss.threshold_db))
     records += [_loss_record(loss_map, ind, level_db=loss.threshold_db, edge=sizing.edge) for ind in loss_inds]
     if rules_obj is not None:
         records, _ = screen_records(records, rules_obj, scanned_area_mm2=scanned_area_mm2(amp))
@@ -368,15 +368,16 @@ def _amplitude_records(
 def _backwall_loss_step(
     amp: xr.DataArray, inds: list[Indication], loss: LossOptions | None, bw: BackwallReference,
     depth_map: xr.DataArray | None, detection: DetectionOptions,
-) -> tuple[xr.DataArray | None, list[Indication], dict[int, tuple[float | None, tuple[str, ...]]]]:
-    """The loss map, the back-wall-loss indications and, by flaw id, the loss under the flaw with its notes.
+) -> tuple[xr.DataArray | None, xr.DataArray | None, list[Indication], dict[int, tuple[float | None, tuple[str, ...]]]]:
+    """The loss map as measured and after merging, the back-wall-loss indications and, by flaw id, the loss under
+    the flaw with its notes (the map as measured gives the loss boundary a flaw is sized against).
 
     With ``loss.merge`` the loss regions under flaw echoes go into the flaws' records
     (:func:`ndtmap.indications.backwall.merge_loss_into_flaws`) and the remaining loss is detected again.
     """
-    loss_map = loss_map_db(amp, loss, bw)
+    loss_map = whole = loss_map_db(amp, loss, bw)
     if loss_map is None:
-        return None, [], {}
+        return None, None, [], {}
     under = loss_under_flaws(loss_map, inds)
     loss_inds: list[Indication] = []
     merged: dict[int, list[str]] = {}
@@ -395,7 +396,7 @@ def _backwall_loss_step(
     for i in set(under) | set(merged):
         db, note = under.get(i, (None, None))
         shadow[i] = (db, ((note,) if note else ()) + tuple(merged.get(i, ())))
-    return loss_map, loss_inds, shadow
+    return whole, loss_map, loss_inds, shadow
 
 
 def _level_fsh(amp: xr.DataArray, level: Mapping[str, Any]) -> np.ndarray:
